@@ -1,0 +1,119 @@
+//! `grove apply`.
+
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+use clap::Args;
+
+use crate::dataset::{list_images, stem_of};
+use crate::error::{GroveError, Result};
+use crate::imageio::{has_image_extension, read_image};
+use crate::outputs::{write_outputs, OutputOptions};
+use crate::progress::Progress;
+
+#[derive(Args, Debug)]
+pub struct ApplyArgs {
+    /// Model file written by `grove train`.
+    pub model: PathBuf,
+    /// Images, or folders of images (a dataset folder's images/ is used if present).
+    #[arg(required = true)]
+    pub inputs: Vec<PathBuf>,
+    /// Output folder (labels/, overlays/, confidence/, probabilities/ are created inside).
+    #[arg(long, short, value_name = "DIR")]
+    pub out: PathBuf,
+    /// Also write the confidence map (winning class probability, 0–255): dark = unsure.
+    #[arg(long)]
+    pub confidence: bool,
+    /// Also write one probability map per class.
+    #[arg(long)]
+    pub probabilities: bool,
+    /// Skip the colour overlays.
+    #[arg(long)]
+    pub no_overlay: bool,
+    /// Class colour weight in overlays, 0–1.
+    #[arg(long, default_value_t = 0.45, value_name = "W")]
+    pub opacity: f32,
+}
+
+/// Expands files and folders into image paths, keeping the given order.
+pub fn collect_inputs(inputs: &[PathBuf]) -> Result<Vec<PathBuf>> {
+    let mut out = Vec::new();
+    for p in inputs {
+        if p.is_dir() {
+            let sub = p.join("images");
+            let dir: &Path = if sub.is_dir() { &sub } else { p };
+            let found = list_images(dir)?;
+            if found.is_empty() {
+                return Err(GroveError::input(
+                    dir,
+                    "no images (PNG, JPEG or TIFF) in this folder",
+                ));
+            }
+            out.extend(found);
+        } else if p.is_file() {
+            if !has_image_extension(p) {
+                return Err(GroveError::input(p, "not a PNG, JPEG or TIFF file"));
+            }
+            out.push(p.clone());
+        } else {
+            return Err(GroveError::input(p, "no such file or folder"));
+        }
+    }
+    let mut stems: Vec<(String, &PathBuf)> = out.iter().map(|p| (stem_of(p), p)).collect();
+    stems.sort();
+    for w in stems.windows(2) {
+        if w[0].0 == w[1].0 {
+            return Err(GroveError::input(
+                w[1].1,
+                format!(
+                    "same name as {}; outputs would overwrite each other",
+                    w[0].1.display()
+                ),
+            ));
+        }
+    }
+    Ok(out)
+}
+
+pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
+    if !(0.0..=1.0).contains(&args.opacity) {
+        return Err(GroveError::Config(format!(
+            "--opacity {} must be between 0 and 1",
+            args.opacity
+        )));
+    }
+    let model = crate::model::load(&args.model)?;
+    let images = collect_inputs(&args.inputs)?;
+    let opts = OutputOptions {
+        overlay: !args.no_overlay,
+        confidence: args.confidence,
+        probabilities: args.probabilities,
+        overlay_opacity: args.opacity,
+    };
+    let t0 = Instant::now();
+    let bar = progress.stage("applying", images.len() as u64);
+    let mut pixels = 0usize;
+    for path in &images {
+        let img = read_image(path)?;
+        let probs = model.predict_proba(&img);
+        write_outputs(
+            &args.out,
+            &stem_of(path),
+            &img,
+            &probs,
+            &model.classes,
+            &opts,
+        )?;
+        pixels += img.width * img.height;
+        bar.inc(1);
+    }
+    bar.finish_and_clear();
+    let secs = t0.elapsed().as_secs_f64();
+    println!(
+        "segmented {} images ({:.1} Mpx) in {secs:.1} s; label maps in {}",
+        images.len(),
+        pixels as f64 / 1e6,
+        args.out.join("labels").display()
+    );
+    Ok(())
+}

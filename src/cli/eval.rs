@@ -1,0 +1,74 @@
+//! `grove eval`.
+
+use std::path::PathBuf;
+
+use clap::Args;
+
+use crate::cli::{open_dataset, LabelArgs};
+use crate::error::{GroveError, Result};
+use crate::eval::score::{evaluate, MetricsReport};
+use crate::progress::Progress;
+
+#[derive(Args, Debug)]
+pub struct EvalArgs {
+    /// Model file written by `grove train`.
+    pub model: PathBuf,
+    /// Labelled dataset folder to score on (images the model was not trained on).
+    pub data: PathBuf,
+    /// Also write the scores as JSON.
+    #[arg(long, value_name = "FILE")]
+    pub json: Option<PathBuf>,
+    #[command(flatten)]
+    pub labels: LabelArgs,
+}
+
+pub fn run(args: EvalArgs, progress: Progress) -> Result<()> {
+    let model = crate::model::load(&args.model)?;
+    let ds = open_dataset(&args.data, &args.labels)?;
+    if ds.classes != model.classes {
+        return Err(GroveError::input(
+            ds.root.join("classes.toml"),
+            format!(
+                "class table differs from the model's ({}); score with the table the model was trained with",
+                model.classes.names().join(", ")
+            ),
+        ));
+    }
+    let entries = ds.labelled();
+    if entries.is_empty() {
+        return Err(GroveError::input(
+            &ds.root,
+            "no labelled images to score (labels/NAME.png)",
+        ));
+    }
+    let trained: Vec<&str> = model
+        .provenance
+        .training_images
+        .iter()
+        .map(|t| t.name.as_str())
+        .collect();
+    let overlap = entries
+        .iter()
+        .filter(|e| {
+            trained.contains(
+                &e.image
+                    .file_name()
+                    .unwrap_or_default()
+                    .to_string_lossy()
+                    .as_ref(),
+            )
+        })
+        .count();
+    if overlap > 0 {
+        eprintln!("warning: {overlap} of these images share a name with training images; scores on training images are optimistic");
+    }
+    let cm = evaluate(&model, &ds, &entries, progress)?;
+    let names = entries.iter().map(|e| e.stem.clone()).collect();
+    let report = MetricsReport::new(&cm, &model.classes, names);
+    print!("{}", report.to_table());
+    if let Some(path) = &args.json {
+        crate::imageio::write_atomic(path, report.to_json().as_bytes())?;
+        println!("\nscores written to {}", path.display());
+    }
+    Ok(())
+}

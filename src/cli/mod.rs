@@ -1,0 +1,101 @@
+//! Command-line layer: parsing, thread setup, error printing. One file per command.
+
+mod apply;
+mod demo;
+mod eval;
+mod train;
+
+use clap::{Parser, Subcommand};
+
+use crate::progress::Progress;
+
+/// Train and apply CPU-only per-pixel segmenters from a few labelled images.
+#[derive(Parser, Debug)]
+#[command(name = "grove", version, about, long_about = None, propagate_version = true)]
+pub struct Cli {
+    /// Worker threads (default: all cores).
+    #[arg(long, global = true, value_name = "N")]
+    threads: Option<usize>,
+    /// No progress bars (they are also off when stderr is not a terminal).
+    #[arg(long, short, global = true)]
+    quiet: bool,
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+enum Command {
+    /// Train a segmenter on a dataset folder (images/, labels/, classes.toml).
+    Train(train::TrainArgs),
+    /// Segment images with a trained model: label maps, overlays, confidence.
+    Apply(apply::ApplyArgs),
+    /// Score a model on a labelled dataset: accuracy, IoU per class, confusion matrix.
+    Eval(eval::EvalArgs),
+    /// Generate the synthetic farm dataset, train, score and apply, end to end.
+    Demo(demo::DemoArgs),
+}
+
+/// Parses arguments, runs the command and returns the process exit code.
+pub fn run() -> i32 {
+    let cli = Cli::parse();
+    if let Some(n) = cli.threads {
+        if n == 0 {
+            eprintln!("error: --threads must be at least 1");
+            return 2;
+        }
+        if let Err(e) = rayon::ThreadPoolBuilder::new()
+            .num_threads(n)
+            .build_global()
+        {
+            eprintln!("error: cannot start {n} threads: {e}");
+            return 2;
+        }
+    }
+    let progress =
+        Progress::new(!cli.quiet && std::io::IsTerminal::is_terminal(&std::io::stderr()));
+    let result = match cli.command {
+        Command::Train(a) => train::run(a, progress),
+        Command::Apply(a) => apply::run(a, progress),
+        Command::Eval(a) => eval::run(a, progress),
+        Command::Demo(a) => demo::run(a, progress),
+    };
+    match result {
+        Ok(()) => 0,
+        Err(e) => {
+            eprintln!("error: {e}");
+            1
+        }
+    }
+}
+
+/// Label-file options shared by the commands that read datasets.
+#[derive(clap::Args, Debug, Clone)]
+pub struct LabelArgs {
+    /// Label value meaning "not labelled" in single-channel label files.
+    #[arg(long, default_value_t = 255, value_name = "V")]
+    unlabelled_value: u8,
+    /// Treat label values or colours missing from classes.toml as unlabelled instead of failing.
+    #[arg(long)]
+    unknown_as_unlabelled: bool,
+}
+
+impl LabelArgs {
+    fn options(&self) -> crate::dataset::LabelOptions {
+        crate::dataset::LabelOptions {
+            unlabelled_value: self.unlabelled_value,
+            unknown_as_unlabelled: self.unknown_as_unlabelled,
+        }
+    }
+}
+
+/// Opens a dataset and prints its warnings.
+fn open_dataset(
+    path: &std::path::Path,
+    labels: &LabelArgs,
+) -> crate::Result<crate::dataset::Dataset> {
+    let ds = crate::dataset::Dataset::open(path, labels.options())?;
+    for w in &ds.warnings {
+        eprintln!("warning: {w}");
+    }
+    Ok(ds)
+}

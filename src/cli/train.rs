@@ -1,0 +1,109 @@
+//! `grove train`.
+
+use std::path::PathBuf;
+use std::time::Instant;
+
+use clap::Args;
+
+use crate::cli::{open_dataset, LabelArgs};
+use crate::error::Result;
+use crate::progress::Progress;
+use crate::segmenter::TrainConfig;
+
+#[derive(Args, Debug)]
+pub struct TrainArgs {
+    /// Dataset folder with images/, labels/ and classes.toml.
+    pub data: PathBuf,
+    /// Where to write the model file.
+    #[arg(long, short, value_name = "FILE")]
+    pub model: PathBuf,
+    /// Trees in the forest.
+    #[arg(long, default_value_t = 32, value_name = "N")]
+    pub trees: usize,
+    /// Maximum tree depth.
+    #[arg(long, default_value_t = 20, value_name = "N")]
+    pub max_depth: usize,
+    /// Minimum training samples in a leaf.
+    #[arg(long, default_value_t = 2, value_name = "N")]
+    pub min_leaf: usize,
+    /// Labelled pixels sampled per image (split equally among the classes it contains).
+    #[arg(long, default_value_t = 5000, value_name = "N")]
+    pub samples_per_image: usize,
+    /// Texton dictionary size (0 turns texton features off).
+    #[arg(long, default_value_t = 32, value_name = "K")]
+    pub textons: usize,
+    /// Texton histogram window sides in pixels (odd; one or two values).
+    #[arg(long, value_delimiter = ',', default_value = "15", value_name = "PX")]
+    pub texton_windows: Vec<usize>,
+    /// Filter scales (Gaussian sigma, pixels).
+    #[arg(
+        long,
+        value_delimiter = ',',
+        default_value = "1,2,4,8",
+        value_name = "SIGMAS"
+    )]
+    pub scales: Vec<f32>,
+    /// Filter lightness only, not the a/b colour channels.
+    #[arg(long)]
+    pub no_chroma_filters: bool,
+    /// Leave out the x/y position features (use when class does not depend on where it is).
+    #[arg(long)]
+    pub no_position: bool,
+    /// Random seed; the same seed and data give an identical model file.
+    #[arg(long, default_value_t = 0)]
+    pub seed: u64,
+    #[command(flatten)]
+    pub labels: LabelArgs,
+}
+
+impl TrainArgs {
+    pub fn config(&self) -> TrainConfig {
+        let mut cfg = TrainConfig {
+            samples_per_image: self.samples_per_image,
+            seed: self.seed,
+            ..TrainConfig::default()
+        };
+        cfg.forest.n_trees = self.trees;
+        cfg.forest.max_depth = self.max_depth;
+        cfg.forest.min_samples_leaf = self.min_leaf;
+        cfg.forest.seed = self.seed;
+        cfg.features.textons = self.textons;
+        cfg.features.texton_windows = self.texton_windows.clone();
+        cfg.features.bank.scales = self.scales.clone();
+        cfg.features.bank.filter_chroma = !self.no_chroma_filters;
+        cfg.features.position = !self.no_position;
+        cfg
+    }
+}
+
+pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
+    let t0 = Instant::now();
+    let ds = open_dataset(&args.data, &args.labels)?;
+    let entries = ds.labelled();
+    let model = args.config().fit(&ds, &entries, progress)?;
+    crate::model::save(&model, &args.model)?;
+    let p = &model.provenance;
+    println!(
+        "trained on {} images ({} sampled pixels, {} features) in {:.1} s",
+        entries.len(),
+        p.samples_per_class.iter().sum::<u64>(),
+        model.features.n_features(),
+        t0.elapsed().as_secs_f64()
+    );
+    if let Some(oob) = p.oob_accuracy {
+        println!("out-of-bag accuracy on sampled pixels: {oob:.4} (optimistic: pixels of one image are alike; use `grove eval` on held-out images)");
+    }
+    let top: Vec<String> = model
+        .ranked_importances()
+        .iter()
+        .take(5)
+        .map(|(n, v)| format!("{n} {v:.3}"))
+        .collect();
+    println!("most informative features: {}", top.join(", "));
+    println!("model written to {}", args.model.display());
+    println!(
+        "next: grove apply {} IMAGES... --out DIR",
+        args.model.display()
+    );
+    Ok(())
+}

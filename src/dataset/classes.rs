@@ -1,0 +1,214 @@
+//! The class table (`classes.toml`): ids as they appear in label files, names, and display
+//! colours. Internally grove numbers classes 0..n in table order ("class index"), because
+//! the forest wants dense indices while users may number their classes sparsely.
+
+use std::collections::HashSet;
+use std::path::Path;
+
+use serde::{Deserialize, Serialize};
+
+use crate::error::{GroveError, Result};
+
+/// One class: `id` is its value in single-channel label files.
+#[derive(Clone, Debug, PartialEq, Eq, Serialize, Deserialize)]
+pub struct ClassInfo {
+    pub id: u8,
+    pub name: String,
+    pub color: [u8; 3],
+}
+
+/// The validated class table.
+#[derive(Clone, Debug, PartialEq, Eq, Serialize, Deserialize)]
+pub struct ClassTable {
+    classes: Vec<ClassInfo>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct TableFile {
+    class: Vec<ClassEntry>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct ClassEntry {
+    id: i64,
+    name: String,
+    color: String,
+}
+
+/// Parses `#rrggbb` (the leading `#` is optional).
+pub fn parse_hex_colour(text: &str) -> Option<[u8; 3]> {
+    let hex = text.trim().trim_start_matches('#');
+    if hex.len() != 6 || !hex.chars().all(|c| c.is_ascii_hexdigit()) {
+        return None;
+    }
+    let byte = |i: usize| u8::from_str_radix(&hex[i..i + 2], 16).ok();
+    Some([byte(0)?, byte(2)?, byte(4)?])
+}
+
+/// `#rrggbb`.
+pub fn hex_colour(c: [u8; 3]) -> String {
+    format!("#{:02x}{:02x}{:02x}", c[0], c[1], c[2])
+}
+
+impl ClassTable {
+    /// Reads and validates `classes.toml`; `unlabelled` is the label value reserved for
+    /// "no label", which therefore cannot be a class id.
+    pub fn load(path: &Path, unlabelled: u8) -> Result<Self> {
+        let text = std::fs::read_to_string(path).map_err(|e| GroveError::io(path, e))?;
+        Self::parse(&text, unlabelled).map_err(|m| GroveError::input(path, m))
+    }
+
+    /// Parses the TOML text; the error is a message without the file name.
+    pub fn parse(text: &str, unlabelled: u8) -> std::result::Result<Self, String> {
+        let file: TableFile =
+            toml::from_str(text).map_err(|e| format!("invalid class table: {e}"))?;
+        let mut classes = Vec::with_capacity(file.class.len());
+        for c in file.class {
+            if !(0..=255).contains(&c.id) {
+                return Err(format!(
+                    "class '{}' has id {}; ids must be 0..=254",
+                    c.name, c.id
+                ));
+            }
+            let id = c.id as u8;
+            if id == unlabelled {
+                return Err(format!(
+                    "class '{}' uses id {id}, which is the unlabelled value; pick another id or set a different unlabelled value",
+                    c.name
+                ));
+            }
+            if c.name.trim().is_empty() {
+                return Err(format!("class with id {id} has an empty name"));
+            }
+            let color = parse_hex_colour(&c.color).ok_or_else(|| {
+                format!(
+                    "class '{}' has colour '{}'; expected #rrggbb",
+                    c.name, c.color
+                )
+            })?;
+            classes.push(ClassInfo {
+                id,
+                name: c.name,
+                color,
+            });
+        }
+        Self::new(classes)
+    }
+
+    /// Validates a table built in code.
+    pub fn new(classes: Vec<ClassInfo>) -> std::result::Result<Self, String> {
+        if classes.len() < 2 {
+            return Err(format!(
+                "the class table has {} class(es); a segmenter needs at least 2 to separate",
+                classes.len()
+            ));
+        }
+        let (mut ids, mut names, mut colours) = (HashSet::new(), HashSet::new(), HashSet::new());
+        for c in &classes {
+            if !ids.insert(c.id) {
+                return Err(format!("duplicate class id {}", c.id));
+            }
+            if !names.insert(c.name.as_str()) {
+                return Err(format!("duplicate class name '{}'", c.name));
+            }
+            if !colours.insert(c.color) {
+                return Err(format!(
+                    "duplicate colour {} (class '{}'): colour-coded labels would be ambiguous",
+                    hex_colour(c.color),
+                    c.name
+                ));
+            }
+        }
+        Ok(ClassTable { classes })
+    }
+
+    pub fn len(&self) -> usize {
+        self.classes.len()
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.classes.is_empty()
+    }
+
+    pub fn classes(&self) -> &[ClassInfo] {
+        &self.classes
+    }
+
+    pub fn names(&self) -> Vec<String> {
+        self.classes.iter().map(|c| c.name.clone()).collect()
+    }
+
+    /// Class index for a label-file id.
+    pub fn index_of_id(&self, id: u8) -> Option<usize> {
+        self.classes.iter().position(|c| c.id == id)
+    }
+
+    /// Class index for a label colour.
+    pub fn index_of_colour(&self, rgb: [u8; 3]) -> Option<usize> {
+        self.classes.iter().position(|c| c.color == rgb)
+    }
+
+    /// Palette for label PNGs: entry `id` holds that class's colour, others black.
+    pub fn palette(&self) -> [[u8; 3]; 256] {
+        let mut pal = [[0u8; 3]; 256];
+        for c in &self.classes {
+            pal[c.id as usize] = c.color;
+        }
+        pal
+    }
+
+    /// TOML text in the same format `load` reads.
+    pub fn to_toml(&self) -> String {
+        let mut s = String::new();
+        for c in &self.classes {
+            s += &format!(
+                "[[class]]\nid = {}\nname = \"{}\"\ncolor = \"{}\"\n\n",
+                c.id,
+                c.name.replace('"', "\\\""),
+                hex_colour(c.color)
+            );
+        }
+        s
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    const OK: &str = "[[class]]\nid = 0\nname = \"soil\"\ncolor = \"#8a6a4a\"\n[[class]]\nid = 3\nname = \"crop\"\ncolor = \"#22aa22\"\n";
+
+    #[test]
+    fn parses_and_round_trips() {
+        let t = ClassTable::parse(OK, 255).unwrap();
+        assert_eq!(t.len(), 2);
+        assert_eq!(t.index_of_id(3), Some(1));
+        assert_eq!(t.index_of_colour([0x8a, 0x6a, 0x4a]), Some(0));
+        assert_eq!(ClassTable::parse(&t.to_toml(), 255).unwrap(), t);
+    }
+
+    #[test]
+    fn rejects_duplicates_and_bad_values() {
+        let dup_id = OK.replace("id = 3", "id = 0");
+        assert!(ClassTable::parse(&dup_id, 255)
+            .unwrap_err()
+            .contains("duplicate class id"));
+        let dup_name = OK.replace("crop", "soil");
+        assert!(ClassTable::parse(&dup_name, 255)
+            .unwrap_err()
+            .contains("duplicate class name"));
+        let bad_colour = OK.replace("#22aa22", "green");
+        assert!(ClassTable::parse(&bad_colour, 255)
+            .unwrap_err()
+            .contains("expected #rrggbb"));
+        assert!(ClassTable::parse(OK, 3)
+            .unwrap_err()
+            .contains("unlabelled value"));
+        let one = "[[class]]\nid = 0\nname = \"a\"\ncolor = \"#000000\"\n";
+        assert!(ClassTable::parse(one, 255)
+            .unwrap_err()
+            .contains("at least 2"));
+    }
+}

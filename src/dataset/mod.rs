@@ -1,0 +1,195 @@
+//! A dataset folder: `images/` (PNG, JPEG, TIFF), `labels/` (PNG, same file stem) and
+//! `classes.toml`. Images without a label file are allowed (they are only applied to).
+
+pub mod classes;
+pub mod labels;
+pub mod sample;
+
+use std::path::{Path, PathBuf};
+
+pub use classes::{ClassInfo, ClassTable};
+pub use labels::{LabelMap, LabelOptions, UNLABELLED};
+
+use crate::error::{GroveError, Result};
+use crate::imageio::{has_image_extension, read_image, RasterImage};
+
+/// One image of a dataset and its label file, if any.
+#[derive(Clone, Debug)]
+pub struct ImageEntry {
+    pub stem: String,
+    pub image: PathBuf,
+    pub labels: Option<PathBuf>,
+}
+
+/// An opened dataset folder (class table read and validated, files paired by stem).
+#[derive(Clone, Debug)]
+pub struct Dataset {
+    pub root: PathBuf,
+    pub classes: ClassTable,
+    pub entries: Vec<ImageEntry>,
+    pub label_options: LabelOptions,
+    /// Things worth telling the user that do not stop the run.
+    pub warnings: Vec<String>,
+}
+
+/// Image files in `dir` (not recursive), sorted by file name so runs are reproducible.
+pub fn list_images(dir: &Path) -> Result<Vec<PathBuf>> {
+    let rd = std::fs::read_dir(dir).map_err(|e| GroveError::io(dir, e))?;
+    let mut files = Vec::new();
+    for entry in rd {
+        let path = entry.map_err(|e| GroveError::io(dir, e))?.path();
+        if path.is_file() && has_image_extension(&path) {
+            files.push(path);
+        }
+    }
+    files.sort();
+    Ok(files)
+}
+
+/// The file stem as UTF-8 (lossy: names are for display and pairing).
+pub fn stem_of(path: &Path) -> String {
+    path.file_stem()
+        .map(|s| s.to_string_lossy().into_owned())
+        .unwrap_or_default()
+}
+
+impl Dataset {
+    /// Opens `root`, reading `classes.toml` and pairing `images/X.*` with `labels/X.png`.
+    pub fn open(root: &Path, label_options: LabelOptions) -> Result<Dataset> {
+        let images_dir = root.join("images");
+        if !images_dir.is_dir() {
+            return Err(GroveError::input(
+                root,
+                "not a grove dataset: expected an images/ folder (plus labels/ and classes.toml)",
+            ));
+        }
+        let table_path = root.join("classes.toml");
+        if !table_path.is_file() {
+            return Err(GroveError::input(
+                &table_path,
+                "missing class table; create it with one [[class]] entry (id, name, color) per class",
+            ));
+        }
+        let classes = ClassTable::load(&table_path, label_options.unlabelled_value)?;
+        let labels_dir = root.join("labels");
+        let mut warnings = Vec::new();
+        let mut entries: Vec<ImageEntry> = Vec::new();
+        for image in list_images(&images_dir)? {
+            let stem = stem_of(&image);
+            if let Some(prev) = entries.iter().find(|e| e.stem == stem) {
+                return Err(GroveError::input(
+                    &image,
+                    format!(
+                        "two images share the name '{stem}' ({}); rename one",
+                        prev.image.display()
+                    ),
+                ));
+            }
+            let label = labels_dir.join(format!("{stem}.png"));
+            entries.push(ImageEntry {
+                stem,
+                image,
+                labels: label.is_file().then_some(label),
+            });
+        }
+        if entries.is_empty() {
+            return Err(GroveError::input(
+                &images_dir,
+                "no images (PNG, JPEG or TIFF) found",
+            ));
+        }
+        if labels_dir.is_dir() {
+            for label in list_images(&labels_dir)? {
+                let stem = stem_of(&label);
+                if !entries.iter().any(|e| e.stem == stem) {
+                    warnings.push(format!(
+                        "{}: label file has no matching image; ignored",
+                        label.display()
+                    ));
+                }
+            }
+        }
+        Ok(Dataset {
+            root: root.to_path_buf(),
+            classes,
+            entries,
+            label_options,
+            warnings,
+        })
+    }
+
+    /// Entries that have a label file.
+    pub fn labelled(&self) -> Vec<&ImageEntry> {
+        self.entries.iter().filter(|e| e.labels.is_some()).collect()
+    }
+
+    /// Reads an entry's image and labels, checking that their sizes agree.
+    pub fn load_pair(&self, entry: &ImageEntry) -> Result<(RasterImage, LabelMap)> {
+        let label_path = entry
+            .labels
+            .as_ref()
+            .ok_or_else(|| GroveError::input(&entry.image, "image has no label file"))?;
+        let image = read_image(&entry.image)?;
+        let labels = self.read_labels(label_path)?;
+        if (labels.width, labels.height) != (image.width, image.height) {
+            return Err(GroveError::input(
+                label_path,
+                format!(
+                    "label size {}x{} differs from image size {}x{} ({})",
+                    labels.width,
+                    labels.height,
+                    image.width,
+                    image.height,
+                    entry.image.display()
+                ),
+            ));
+        }
+        Ok((image, labels))
+    }
+
+    pub fn read_labels(&self, path: &Path) -> Result<LabelMap> {
+        labels::read_labels(path, &self.classes, &self.label_options)
+    }
+
+    /// Checks that the given label counts can train a segmenter: some labelled pixels and at
+    /// least two classes; classes of the table without pixels become warnings.
+    pub fn check_counts(&self, counts: &[u64]) -> Result<Vec<String>> {
+        let total: u64 = counts.iter().sum();
+        if total == 0 {
+            return Err(GroveError::Data(format!(
+                "{}: no labelled pixels in any label file; draw at least a few strokes per class",
+                self.root.display()
+            )));
+        }
+        let present: Vec<&str> = self
+            .classes
+            .classes()
+            .iter()
+            .zip(counts)
+            .filter(|(_, &n)| n > 0)
+            .map(|(c, _)| c.name.as_str())
+            .collect();
+        if present.len() < 2 {
+            return Err(GroveError::Data(format!(
+                "{}: only class '{}' has labelled pixels; label at least two classes so there is something to separate",
+                self.root.display(),
+                present[0]
+            )));
+        }
+        Ok(self
+            .classes
+            .classes()
+            .iter()
+            .zip(counts)
+            .filter(|(_, &n)| n == 0)
+            .map(|(c, _)| {
+                format!(
+                    "{}: class '{}' (id {}) has no labelled pixels; the model will never predict it",
+                    self.root.display(),
+                    c.name,
+                    c.id
+                )
+            })
+            .collect())
+    }
+}

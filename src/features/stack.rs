@@ -1,0 +1,194 @@
+//! The per-pixel feature vector: the one place that knows the feature order and names.
+//!
+//! Order: filter-bank responses (see `bank`), then position (x, y in [0, 1]) if enabled,
+//! then the local texton histograms (k bins per window size). Filters want planes, the
+//! forest wants one row of F floats per pixel; planes are kept and rows are gathered in
+//! blocks only when the forest needs them, so a full pixel-major copy never exists.
+
+use serde::{Deserialize, Serialize};
+
+use crate::error::{GroveError, Result};
+use crate::features::bank::{filter_bank, filter_bank_names, FilterBankConfig};
+use crate::features::color::lab_planes;
+use crate::features::textons::{texton_histograms, TextonDictionary};
+use crate::imageio::RasterImage;
+use crate::plane::Plane;
+
+/// Everything that decides which features a model computes; stored in the model file.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct FeatureConfig {
+    pub bank: FilterBankConfig,
+    /// Append normalised x and y (helps when classes sit in typical places, e.g. MRI).
+    pub position: bool,
+    /// Texton dictionary size k; 0 disables texton features.
+    pub textons: usize,
+    /// Square window sides (odd, pixels) for the local texton histograms.
+    pub texton_windows: Vec<usize>,
+    /// Pixels per training image fed to k-means.
+    pub texton_samples_per_image: usize,
+    /// Lloyd iterations for the texton dictionary.
+    pub kmeans_iterations: usize,
+}
+
+impl Default for FeatureConfig {
+    fn default() -> Self {
+        FeatureConfig {
+            bank: FilterBankConfig::default(),
+            position: true,
+            textons: 32,
+            texton_windows: vec![15],
+            texton_samples_per_image: 5000,
+            kmeans_iterations: 50,
+        }
+    }
+}
+
+impl FeatureConfig {
+    pub fn validate(&self) -> Result<()> {
+        self.bank.validate()?;
+        if self.textons > 0 {
+            if self.textons > u16::MAX as usize {
+                return Err(GroveError::Config(format!(
+                    "{} textons is too many",
+                    self.textons
+                )));
+            }
+            if self.texton_windows.is_empty() || self.texton_windows.len() > 2 {
+                return Err(GroveError::Config(
+                    "give one or two texton window sizes".into(),
+                ));
+            }
+            if let Some(w) = self.texton_windows.iter().find(|&&w| w % 2 == 0 || w == 0) {
+                return Err(GroveError::Config(format!(
+                    "texton window {w} must be odd and positive"
+                )));
+            }
+            if self.texton_samples_per_image == 0 {
+                return Err(GroveError::Config(
+                    "texton samples per image must be positive".into(),
+                ));
+            }
+        }
+        Ok(())
+    }
+}
+
+/// All feature planes of one image, in the canonical order.
+pub struct FeatureStack {
+    pub width: usize,
+    pub height: usize,
+    pub planes: Vec<Plane>,
+}
+
+impl FeatureStack {
+    pub fn n_features(&self) -> usize {
+        self.planes.len()
+    }
+
+    /// Pixel-major rows for the given pixel indices.
+    pub fn gather_rows(&self, pixels: &[u32]) -> Vec<f32> {
+        let f = self.planes.len();
+        let mut out = vec![0.0f32; pixels.len() * f];
+        for (j, plane) in self.planes.iter().enumerate() {
+            for (row, &p) in pixels.iter().enumerate() {
+                out[row * f + j] = plane.data[p as usize];
+            }
+        }
+        out
+    }
+
+    /// Pixel-major rows for pixels `start..start + out.len() / F`.
+    pub fn rows_into(&self, start: usize, out: &mut [f32]) {
+        let f = self.planes.len();
+        let n = out.len() / f;
+        for (j, plane) in self.planes.iter().enumerate() {
+            for (i, &v) in plane.data[start..start + n].iter().enumerate() {
+                out[i * f + j] = v;
+            }
+        }
+    }
+}
+
+/// The fitted feature stage: config, colour mode and texton dictionary.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+pub struct FeatureExtractor {
+    pub config: FeatureConfig,
+    /// 1 (lightness only, trained on grey images) or 3 (L, a, b).
+    pub channels: usize,
+    pub textons: Option<TextonDictionary>,
+}
+
+impl FeatureExtractor {
+    /// CIE Lab planes in the model's colour mode: grey input to a colour model gives
+    /// a = b = 0; colour input to a grey model keeps L only.
+    pub fn lab(&self, image: &RasterImage) -> Vec<Plane> {
+        let mut lab = if self.channels == 3 {
+            lab_planes(&image.to_rgb().channels)
+        } else {
+            lab_planes(&image.channels)
+        };
+        lab.truncate(self.channels);
+        lab
+    }
+
+    /// The filter-bank responses (the input of the texton dictionary).
+    pub fn responses(&self, image: &RasterImage) -> Vec<Plane> {
+        filter_bank(&self.lab(image), &self.config.bank)
+    }
+
+    /// Appends position and texton histograms to the responses.
+    pub fn stack(&self, responses: Vec<Plane>) -> FeatureStack {
+        let (w, h) = (responses[0].width, responses[0].height);
+        let mut planes = responses;
+        if self.config.position {
+            planes.extend(position_planes(w, h));
+        }
+        if let Some(dict) = &self.textons {
+            let map = dict.assign_planes(
+                &planes[..filter_bank_names(self.channels, &self.config.bank).len()],
+            );
+            for &win in &self.config.texton_windows {
+                planes.extend(texton_histograms(&map, w, h, dict.k(), win).expect(
+                    "texton windows are checked by FeatureConfig::validate before fitting",
+                ));
+            }
+        }
+        FeatureStack {
+            width: w,
+            height: h,
+            planes,
+        }
+    }
+
+    /// Responses + stack in one call.
+    pub fn features(&self, image: &RasterImage) -> FeatureStack {
+        self.stack(self.responses(image))
+    }
+
+    /// Feature names in stack order.
+    pub fn names(&self) -> Vec<String> {
+        let mut names = filter_bank_names(self.channels, &self.config.bank);
+        if self.config.position {
+            names.extend(["pos_x".to_string(), "pos_y".to_string()]);
+        }
+        if let Some(dict) = &self.textons {
+            for &win in &self.config.texton_windows {
+                names.extend((0..dict.k()).map(|j| format!("texton{j}_w{win}")));
+            }
+        }
+        names
+    }
+
+    pub fn n_features(&self) -> usize {
+        self.names().len()
+    }
+}
+
+/// x / (w - 1) and y / (h - 1), so both run over [0, 1] whatever the image size.
+pub fn position_planes(w: usize, h: usize) -> [Plane; 2] {
+    let sx = 1.0 / (w.max(2) - 1) as f32;
+    let sy = 1.0 / (h.max(2) - 1) as f32;
+    let xs: Vec<f32> = (0..w * h).map(|i| (i % w) as f32 * sx).collect();
+    let ys: Vec<f32> = (0..w * h).map(|i| (i / w) as f32 * sy).collect();
+    [Plane::from_vec(w, h, xs), Plane::from_vec(w, h, ys)]
+}

@@ -1,0 +1,17 @@
+//! Random forest classifier on histogram-binned features (Breiman 2001, Machine Learning
+//! 45:5–32): bootstrap per tree, a fresh random subset of features per split, Gini impurity,
+//! leaves holding class-probability vectors; out-of-bag accuracy and impurity-based feature
+//! importances are computed during training.
+//!
+//! Why our own rather than linfa-trees: on this machine linfa-trees took 84 s for one depth-16
+//! tree on 80k samples; it has no per-split feature sampling and no class probabilities, and
+//! its forest trains trees sequentially. This one bins features once (`bins`), grows trees on
+//! per-bin class histograms (`tree`), and trains and predicts in parallel with rayon (`forest`):
+//! 32 trees on 200k × 40 rows train in seconds on 2 cores.
+
+mod bins;
+#[allow(clippy::module_inception)] // forest/forest.rs: the bagging layer, named as in DESIGN.md
+mod forest;
+mod tree;
+
+pub use forest::{ForestConfig, RandomForest};

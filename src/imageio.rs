@@ -1,0 +1,333 @@
+//! Reading images into f32 planes and writing grove's outputs.
+//!
+//! Inputs: PNG, JPEG or TIFF, 8- or 16-bit, grey, grey+alpha, RGB or RGBA. Alpha is dropped
+//! (it carries no appearance), 16-bit is scaled by 1/65535 so a model trained on 8-bit data
+//! sees the same range. Outputs are written to a temporary name in the target folder and
+//! renamed, so an interrupted run never leaves half a file behind.
+
+use std::io::{BufReader, Cursor, Write};
+use std::path::{Path, PathBuf};
+
+use image::DynamicImage;
+
+use crate::error::{GroveError, Result};
+use crate::plane::Plane;
+
+/// An input image as sRGB-encoded planes in [0, 1]: one plane (grey) or three (R, G, B).
+#[derive(Clone, Debug)]
+pub struct RasterImage {
+    pub width: usize,
+    pub height: usize,
+    pub channels: Vec<Plane>,
+}
+
+impl RasterImage {
+    pub fn is_grey(&self) -> bool {
+        self.channels.len() == 1
+    }
+
+    /// The same image with three channels (grey replicated), for RGB-trained models.
+    pub fn to_rgb(&self) -> RasterImage {
+        if self.is_grey() {
+            RasterImage {
+                width: self.width,
+                height: self.height,
+                channels: vec![self.channels[0].clone(); 3],
+            }
+        } else {
+            self.clone()
+        }
+    }
+
+    /// 8-bit RGB bytes (grey replicated), the base layer of overlays.
+    pub fn to_rgb8(&self) -> Vec<u8> {
+        let n = self.width * self.height;
+        let mut out = vec![0u8; n * 3];
+        for (c, px) in out.chunks_exact_mut(3).enumerate() {
+            for (k, v) in px.iter_mut().enumerate() {
+                let plane = &self.channels[if self.is_grey() { 0 } else { k }];
+                *v = (plane.data[c] * 255.0).round().clamp(0.0, 255.0) as u8;
+            }
+        }
+        out
+    }
+}
+
+/// Extensions recognised as images when scanning folders.
+pub const IMAGE_EXTENSIONS: &[&str] = &["png", "jpg", "jpeg", "tif", "tiff"];
+
+/// True when `path` has one of [`IMAGE_EXTENSIONS`] (case-insensitive).
+pub fn has_image_extension(path: &Path) -> bool {
+    path.extension()
+        .and_then(|e| e.to_str())
+        .map(|e| IMAGE_EXTENSIONS.contains(&e.to_ascii_lowercase().as_str()))
+        .unwrap_or(false)
+}
+
+fn decode(path: &Path) -> Result<DynamicImage> {
+    let file = std::fs::File::open(path).map_err(|e| GroveError::io(path, e))?;
+    image::ImageReader::new(BufReader::new(file))
+        .with_guessed_format()
+        .map_err(|e| GroveError::io(path, e))?
+        .decode()
+        .map_err(|e| GroveError::input(path, format!("cannot decode image: {e}")))
+}
+
+/// Reads an image file into sRGB planes in [0, 1].
+pub fn read_image(path: &Path) -> Result<RasterImage> {
+    use image::ColorType as C;
+    let img = decode(path)?;
+    let (w, h) = (img.width() as usize, img.height() as usize);
+    if w == 0 || h == 0 {
+        return Err(GroveError::input(path, "image has no pixels"));
+    }
+    let grey = matches!(img.color(), C::L8 | C::La8 | C::L16 | C::La16);
+    let n_ch = if grey { 1 } else { 3 };
+    let mut planes = vec![Plane::filled(w, h, 0.0); n_ch];
+    let wide = matches!(
+        img.color(),
+        C::L16 | C::La16 | C::Rgb16 | C::Rgba16 | C::Rgb32F | C::Rgba32F
+    );
+    if grey && wide {
+        let buf = img.into_luma16();
+        fill(&mut planes, buf.as_raw(), 1, 1.0 / 65535.0);
+    } else if grey {
+        let buf = img.into_luma8();
+        fill(&mut planes, buf.as_raw(), 1, 1.0 / 255.0);
+    } else if wide {
+        let buf = img.into_rgb16();
+        fill(&mut planes, buf.as_raw(), 3, 1.0 / 65535.0);
+    } else {
+        let buf = img.into_rgb8();
+        fill(&mut planes, buf.as_raw(), 3, 1.0 / 255.0);
+    }
+    Ok(RasterImage {
+        width: w,
+        height: h,
+        channels: planes,
+    })
+}
+
+fn fill<T: Copy + Into<f32>>(planes: &mut [Plane], raw: &[T], stride: usize, scale: f32) {
+    for (c, plane) in planes.iter_mut().enumerate() {
+        for (dst, px) in plane.data.iter_mut().zip(raw.chunks_exact(stride)) {
+            *dst = px[c].into() * scale;
+        }
+    }
+}
+
+/// The raw content of a label file before it is mapped through the class table.
+pub enum LabelPixels {
+    /// One value per pixel (grey or palette-indexed PNG): the value is the class id.
+    Values(Vec<u8>),
+    /// Colour-coded: RGBA per pixel (alpha 255 for RGB files).
+    Colours(Vec<[u8; 4]>),
+}
+
+/// A label image as read from disk.
+pub struct LabelFile {
+    pub width: usize,
+    pub height: usize,
+    pub pixels: LabelPixels,
+}
+
+/// Reads a label PNG without colour expansion: a palette-indexed PNG yields its indices
+/// (grove writes its own label maps that way, so they can be read back as labels).
+pub fn read_label_png(path: &Path) -> Result<LabelFile> {
+    use png::ColorType as C;
+    let bytes = std::fs::read(path).map_err(|e| GroveError::io(path, e))?;
+    let bad =
+        |e: png::DecodingError| GroveError::input(path, format!("cannot decode label PNG: {e}"));
+    let mut decoder = png::Decoder::new(Cursor::new(&bytes));
+    decoder.set_transformations(png::Transformations::IDENTITY);
+    let mut reader = decoder.read_info().map_err(bad)?;
+    let size = reader
+        .output_buffer_size()
+        .ok_or_else(|| GroveError::input(path, "label PNG is too large"))?;
+    let mut buf = vec![0u8; size];
+    let info = reader.next_frame(&mut buf).map_err(bad)?;
+    let (w, h) = (info.width as usize, info.height as usize);
+    let depth = info.bit_depth as usize;
+    let channels = info.color_type.samples();
+    let row_values = |row: &[u8]| -> Vec<u16> {
+        let per_row = w * channels;
+        match depth {
+            16 => row
+                .chunks_exact(2)
+                .take(per_row)
+                .map(|b| u16::from_be_bytes([b[0], b[1]]))
+                .collect(),
+            8 => row[..per_row].iter().map(|&b| b as u16).collect(),
+            d => {
+                let mask = (1u16 << d) - 1;
+                (0..per_row)
+                    .map(|i| {
+                        let bit = i * d;
+                        let byte = row[bit / 8] as u16;
+                        (byte >> (8 - d - bit % 8)) & mask
+                    })
+                    .collect()
+            }
+        }
+    };
+    let mut values: Vec<u16> = Vec::with_capacity(w * h * channels);
+    for row in buf.chunks_exact(info.line_size).take(h) {
+        values.extend(row_values(row));
+    }
+    let too_wide = |v: u16| v > 255;
+    let pixels = match info.color_type {
+        C::Grayscale | C::Indexed => {
+            if depth == 16 && values.iter().any(|&v| too_wide(v)) {
+                return Err(GroveError::input(
+                    path,
+                    "16-bit label values above 255 are not supported (class ids are 0..254)",
+                ));
+            }
+            LabelPixels::Values(values.into_iter().map(|v| v as u8).collect())
+        }
+        C::GrayscaleAlpha => LabelPixels::Values(
+            values
+                .chunks_exact(2)
+                .map(|p| if p[1] == 0 { 255 } else { p[0].min(255) as u8 })
+                .collect(),
+        ),
+        C::Rgb | C::Rgba => {
+            let to8 = |v: u16| if depth == 16 { (v >> 8) as u8 } else { v as u8 };
+            LabelPixels::Colours(
+                values
+                    .chunks_exact(channels)
+                    .map(|p| {
+                        let a = if channels == 4 { to8(p[3]) } else { 255 };
+                        [to8(p[0]), to8(p[1]), to8(p[2]), a]
+                    })
+                    .collect(),
+            )
+        }
+    };
+    Ok(LabelFile {
+        width: w,
+        height: h,
+        pixels,
+    })
+}
+
+/// Writes `bytes` to `path` via a temporary file in the same folder and a rename, so
+/// readers never see a partial file and a crash leaves at most a stray temporary.
+pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
+    let dir = path
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
+    std::fs::create_dir_all(dir).map_err(|e| GroveError::io(dir, e))?;
+    let mut tmp = tempfile::Builder::new()
+        .prefix(".grove-tmp-")
+        .tempfile_in(dir)
+        .map_err(|e| GroveError::io(dir, e))?;
+    tmp.write_all(bytes).map_err(|e| GroveError::io(path, e))?;
+    tmp.as_file()
+        .sync_all()
+        .map_err(|e| GroveError::io(path, e))?;
+    tmp.persist(path)
+        .map_err(|e| GroveError::io(path, e.error))?;
+    Ok(())
+}
+
+fn encode_png(
+    width: usize,
+    height: usize,
+    color: png::ColorType,
+    palette: Option<Vec<u8>>,
+    data: &[u8],
+) -> Vec<u8> {
+    let mut out = Vec::new();
+    {
+        let mut enc = png::Encoder::new(&mut out, width as u32, height as u32);
+        enc.set_color(color);
+        enc.set_depth(png::BitDepth::Eight);
+        if let Some(p) = palette {
+            enc.set_palette(p);
+        }
+        // Writing into a Vec cannot fail for valid dimensions, which callers guarantee.
+        let mut writer = enc.write_header().expect("png header");
+        writer.write_image_data(data).expect("png data");
+    }
+    out
+}
+
+/// A palette-indexed label PNG: pixel value = class id, palette entry id = class colour,
+/// so the file is both a valid label input for grove and a readable picture.
+pub fn write_label_png(
+    path: &Path,
+    width: usize,
+    height: usize,
+    ids: &[u8],
+    palette: &[[u8; 3]; 256],
+) -> Result<()> {
+    let pal: Vec<u8> = palette.iter().flatten().copied().collect();
+    write_atomic(
+        path,
+        &encode_png(width, height, png::ColorType::Indexed, Some(pal), ids),
+    )
+}
+
+/// An 8-bit grey PNG.
+pub fn write_grey_png(path: &Path, width: usize, height: usize, data: &[u8]) -> Result<()> {
+    write_atomic(
+        path,
+        &encode_png(width, height, png::ColorType::Grayscale, None, data),
+    )
+}
+
+/// An 8-bit RGB PNG.
+pub fn write_rgb_png(path: &Path, width: usize, height: usize, rgb: &[u8]) -> Result<()> {
+    write_atomic(
+        path,
+        &encode_png(width, height, png::ColorType::Rgb, None, rgb),
+    )
+}
+
+/// Output path `dir/stem.ext`.
+pub fn output_path(dir: &Path, stem: &str, ext: &str) -> PathBuf {
+    dir.join(format!("{stem}.{ext}"))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn label_png_round_trips_through_palette() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("l.png");
+        let mut pal = [[0u8; 3]; 256];
+        pal[3] = [10, 20, 30];
+        let ids = vec![0, 3, 255, 1, 2, 3];
+        write_label_png(&path, 3, 2, &ids, &pal).unwrap();
+        let back = read_label_png(&path).unwrap();
+        match back.pixels {
+            LabelPixels::Values(v) => assert_eq!(v, ids),
+            LabelPixels::Colours(_) => panic!("palette PNG must read back as indices"),
+        }
+    }
+
+    #[test]
+    fn sixteen_bit_grey_is_scaled_to_unit_range() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("g16.png");
+        let img =
+            image::ImageBuffer::<image::Luma<u16>, _>::from_raw(2, 1, vec![0u16, 65535]).unwrap();
+        img.save(&path).unwrap();
+        let r = read_image(&path).unwrap();
+        assert!(r.is_grey());
+        assert_eq!(r.channels[0].data, vec![0.0, 1.0]);
+    }
+
+    #[test]
+    fn corrupt_image_names_the_file() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("broken.png");
+        std::fs::write(&path, b"\x89PNG\r\n\x1a\nnot really").unwrap();
+        let err = read_image(&path).unwrap_err().to_string();
+        assert!(err.contains("broken.png"), "{err}");
+    }
+}

@@ -1,0 +1,22 @@
+//! grove: classical, CPU-only semantic segmentation trained from a few labelled images.
+//!
+//! The modules follow the data flow: `dataset` → `features` → `forest` → `segmenter`
+//! (fit / predict) → `eval` and `outputs`; `model` is the file format; `demo` makes the
+//! built-in synthetic farm scenes; `cli` is the thin command layer.
+
+pub mod cli;
+pub mod dataset;
+pub mod demo;
+pub mod error;
+pub mod eval;
+pub mod features;
+pub mod forest;
+pub mod imageio;
+pub mod model;
+pub mod outputs;
+pub mod plane;
+pub mod progress;
+pub mod segmenter;
+
+pub use error::{GroveError, Result};
+pub use plane::Plane;

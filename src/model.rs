@@ -1,0 +1,97 @@
+//! The model file: one self-checking file holding a `Segmenter`.
+//!
+//! Layout (little-endian): 8-byte magic `GROVE\x00MD`, u32 format version, u64 payload
+//! length, payload (bincode 2 of the `Segmenter`), u64 FNV-1a hash of the payload. The
+//! magic identifies the file type, the version lets older grove releases refuse newer
+//! files with a clear message, and length + hash catch truncation and corruption before
+//! bincode sees the bytes.
+
+use std::path::Path;
+
+use crate::error::{GroveError, Result};
+use crate::imageio::write_atomic;
+use crate::segmenter::Segmenter;
+
+pub const MAGIC: &[u8; 8] = b"GROVE\x00MD";
+/// Bump when the serialised layout of `Segmenter` changes.
+pub const FORMAT_VERSION: u32 = 1;
+const HEADER: usize = 8 + 4 + 8;
+
+/// FNV-1a, 64-bit (Fowler–Noll–Vo): a fast hash that is plenty to detect damage.
+fn fnv1a(bytes: &[u8]) -> u64 {
+    let mut h: u64 = 0xcbf29ce484222325;
+    for &b in bytes {
+        h ^= b as u64;
+        h = h.wrapping_mul(0x100000001b3);
+    }
+    h
+}
+
+/// Serialises a segmenter to the file format.
+pub fn to_bytes(model: &Segmenter) -> Vec<u8> {
+    let payload = bincode::serde::encode_to_vec(model, bincode::config::standard())
+        .expect("a segmenter always serialises");
+    let mut out = Vec::with_capacity(HEADER + payload.len() + 8);
+    out.extend_from_slice(MAGIC);
+    out.extend_from_slice(&FORMAT_VERSION.to_le_bytes());
+    out.extend_from_slice(&(payload.len() as u64).to_le_bytes());
+    out.extend_from_slice(&payload);
+    out.extend_from_slice(&fnv1a(&payload).to_le_bytes());
+    out
+}
+
+/// Parses the file format; the error message does not include the path.
+pub fn from_bytes(bytes: &[u8]) -> std::result::Result<Segmenter, String> {
+    if bytes.len() < 8 || &bytes[..8] != MAGIC {
+        return Err(
+            "not a grove model file (wrong magic bytes); pass a file written by `grove train`"
+                .into(),
+        );
+    }
+    if bytes.len() < HEADER {
+        return Err("model file is truncated (incomplete header)".into());
+    }
+    let version = u32::from_le_bytes(bytes[8..12].try_into().expect("4 bytes"));
+    if version > FORMAT_VERSION {
+        return Err(format!(
+            "model format version {version} is newer than this grove ({}) reads (up to {FORMAT_VERSION}); upgrade grove",
+            env!("CARGO_PKG_VERSION")
+        ));
+    }
+    if version == 0 {
+        return Err("model format version 0 is not valid; the file is damaged".into());
+    }
+    let len = u64::from_le_bytes(bytes[12..20].try_into().expect("8 bytes")) as usize;
+    let Some(end) = HEADER
+        .checked_add(len)
+        .filter(|e| e.checked_add(8).is_some_and(|t| t <= bytes.len()))
+    else {
+        return Err(format!(
+            "model file is truncated ({} bytes, header announces {})",
+            bytes.len(),
+            HEADER as u64 + len as u64 + 8
+        ));
+    };
+    let payload = &bytes[HEADER..end];
+    let stored = u64::from_le_bytes(bytes[end..end + 8].try_into().expect("8 bytes"));
+    if stored != fnv1a(payload) {
+        return Err("model file is damaged (checksum mismatch)".into());
+    }
+    let (model, _) = bincode::serde::decode_from_slice(payload, bincode::config::standard())
+        .map_err(|e| format!("model payload cannot be read: {e}"))?;
+    Ok(model)
+}
+
+/// Writes a model atomically.
+pub fn save(model: &Segmenter, path: &Path) -> Result<()> {
+    write_atomic(path, &to_bytes(model))
+}
+
+/// Reads a model, with a clear error for anything that is not a usable grove model.
+pub fn load(path: &Path) -> Result<Segmenter> {
+    let bytes = std::fs::read(path).map_err(|e| GroveError::io(path, e))?;
+    from_bytes(&bytes).map_err(|message| GroveError::Model {
+        path: path.to_path_buf(),
+        message,
+    })
+}

@@ -1,0 +1,106 @@
+//! What `apply` delivers per image: a label PNG (palette = class colours, pixel value =
+//! class id, so it can be corrected and fed back as training labels), a colour overlay on
+//! the image, and on request a confidence map and per-class probability maps.
+//!
+//! Layout under the output folder: `labels/STEM.png`, `overlays/STEM.png`,
+//! `confidence/STEM.png`, `probabilities/STEM/CLASS.png`.
+
+use std::path::Path;
+
+use crate::dataset::ClassTable;
+use crate::error::Result;
+use crate::imageio::{output_path, write_grey_png, write_label_png, write_rgb_png, RasterImage};
+use crate::segmenter::Probabilities;
+
+/// Which optional outputs to write.
+#[derive(Clone, Copy, Debug)]
+pub struct OutputOptions {
+    pub overlay: bool,
+    pub confidence: bool,
+    pub probabilities: bool,
+    /// Weight of the class colour in the overlay (0 = image only, 1 = colours only).
+    pub overlay_opacity: f32,
+}
+
+impl Default for OutputOptions {
+    fn default() -> Self {
+        OutputOptions {
+            overlay: true,
+            confidence: false,
+            probabilities: false,
+            overlay_opacity: 0.45,
+        }
+    }
+}
+
+fn to_u8(v: f32) -> u8 {
+    (v * 255.0).round().clamp(0.0, 255.0) as u8
+}
+
+/// Blends class colours over the image.
+pub fn overlay(
+    image: &RasterImage,
+    class_index: &[u8],
+    classes: &ClassTable,
+    opacity: f32,
+) -> Vec<u8> {
+    let mut rgb = image.to_rgb8();
+    let colours: Vec<[u8; 3]> = classes.classes().iter().map(|c| c.color).collect();
+    for (px, &c) in rgb.chunks_exact_mut(3).zip(class_index) {
+        let col = colours[c as usize];
+        for k in 0..3 {
+            px[k] = (px[k] as f32 * (1.0 - opacity) + col[k] as f32 * opacity).round() as u8;
+        }
+    }
+    rgb
+}
+
+/// Writes the outputs for one image; returns the class index map it wrote.
+pub fn write_outputs(
+    out_dir: &Path,
+    stem: &str,
+    image: &RasterImage,
+    probs: &Probabilities,
+    classes: &ClassTable,
+    opts: &OutputOptions,
+) -> Result<Vec<u8>> {
+    let (w, h) = (probs.width, probs.height);
+    let index = probs.argmax();
+    let ids: Vec<u8> = index
+        .iter()
+        .map(|&c| classes.classes()[c as usize].id)
+        .collect();
+    write_label_png(
+        &output_path(&out_dir.join("labels"), stem, "png"),
+        w,
+        h,
+        &ids,
+        &classes.palette(),
+    )?;
+    if opts.overlay {
+        let rgb = overlay(image, &index, classes, opts.overlay_opacity);
+        write_rgb_png(
+            &output_path(&out_dir.join("overlays"), stem, "png"),
+            w,
+            h,
+            &rgb,
+        )?;
+    }
+    if opts.confidence {
+        let conf: Vec<u8> = probs.confidence().into_iter().map(to_u8).collect();
+        write_grey_png(
+            &output_path(&out_dir.join("confidence"), stem, "png"),
+            w,
+            h,
+            &conf,
+        )?;
+    }
+    if opts.probabilities {
+        let dir = out_dir.join("probabilities").join(stem);
+        for (c, info) in classes.classes().iter().enumerate() {
+            let p: Vec<u8> = probs.class_plane(c).data.into_iter().map(to_u8).collect();
+            write_grey_png(&output_path(&dir, &info.name, "png"), w, h, &p)?;
+        }
+    }
+    Ok(index)
+}

@@ -1,0 +1,31 @@
+//! Progress bars for long steps, drawn only when stderr is a terminal and the user did
+//! not ask for quiet output (so logs of batch jobs stay clean).
+
+use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
+
+/// Hands out one bar per stage; a disabled `Progress` hands out hidden bars.
+#[derive(Clone, Copy, Debug, Default)]
+pub struct Progress {
+    pub enabled: bool,
+}
+
+impl Progress {
+    pub fn new(enabled: bool) -> Self {
+        Progress { enabled }
+    }
+
+    /// A bar for `total` steps of the named stage.
+    pub fn stage(&self, name: &str, total: u64) -> ProgressBar {
+        if !self.enabled {
+            return ProgressBar::hidden();
+        }
+        let bar = ProgressBar::with_draw_target(Some(total), ProgressDrawTarget::stderr());
+        bar.set_style(
+            ProgressStyle::with_template("{prefix:>12} [{bar:30}] {pos}/{len} {msg} ({elapsed})")
+                .expect("static template")
+                .progress_chars("=> "),
+        );
+        bar.set_prefix(name.to_string());
+        bar
+    }
+}

@@ -1,0 +1,356 @@
+//! The fitted segmenter: class table + feature extractor (with its texton dictionary) +
+//! forest + provenance. `TrainConfig::fit` builds it from a dataset; `predict_proba` turns
+//! an image into per-pixel class probabilities. This is exactly what a model file holds.
+
+use rand::SeedableRng;
+use rand_chacha::ChaCha8Rng;
+use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
+use sha2::{Digest, Sha256};
+
+use crate::dataset::sample::{balanced_sample, uniform_sample};
+use crate::dataset::{ClassTable, Dataset, ImageEntry, LabelMap, UNLABELLED};
+use crate::error::{GroveError, Result};
+use crate::features::kmeans::KMeansConfig;
+use crate::features::stack::{FeatureConfig, FeatureExtractor};
+use crate::features::textons::TextonDictionary;
+use crate::forest::{ForestConfig, RandomForest};
+use crate::imageio::RasterImage;
+use crate::plane::Plane;
+use crate::progress::Progress;
+
+/// Settings for training; validated by `fit`.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct TrainConfig {
+    pub features: FeatureConfig,
+    pub forest: ForestConfig,
+    /// Labelled pixels drawn per training image, split equally among its classes.
+    pub samples_per_image: usize,
+    pub seed: u64,
+    /// Keep filter responses of training images in memory between the two passes when
+    /// they fit in this many bytes; otherwise recompute them (slower, bounded memory).
+    pub cache_bytes: usize,
+}
+
+impl Default for TrainConfig {
+    fn default() -> Self {
+        TrainConfig {
+            features: FeatureConfig::default(),
+            forest: ForestConfig::default(),
+            samples_per_image: 5000,
+            seed: 0,
+            cache_bytes: 2 << 30,
+        }
+    }
+}
+
+/// Where a model came from: enough to reproduce it or to notice it was trained on other data.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Provenance {
+    pub grove_version: String,
+    pub training_images: Vec<TrainingImage>,
+    /// Sampled training pixels per class index.
+    pub samples_per_class: Vec<u64>,
+    /// Labelled pixels per class index over all training images.
+    pub labelled_per_class: Vec<u64>,
+    pub oob_accuracy: Option<f64>,
+    pub seed: u64,
+    pub created_unix: u64,
+    pub config: TrainConfig,
+}
+
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct TrainingImage {
+    pub name: String,
+    /// SHA-256 of the image file's bytes, hex.
+    pub image_sha256: String,
+    pub labelled_pixels: u64,
+}
+
+/// A trained segmenter.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+pub struct Segmenter {
+    pub classes: ClassTable,
+    pub features: FeatureExtractor,
+    pub forest: RandomForest,
+    pub provenance: Provenance,
+}
+
+/// Per-pixel class probabilities, pixel-major (`data[p * n_classes + c]`).
+pub struct Probabilities {
+    pub width: usize,
+    pub height: usize,
+    pub n_classes: usize,
+    pub data: Vec<f32>,
+}
+
+impl Probabilities {
+    /// Most probable class index per pixel (ties go to the lower index).
+    pub fn argmax(&self) -> Vec<u8> {
+        self.data
+            .chunks_exact(self.n_classes)
+            .map(|p| {
+                let mut best = 0;
+                for (c, &v) in p.iter().enumerate() {
+                    if v > p[best] {
+                        best = c;
+                    }
+                }
+                best as u8
+            })
+            .collect()
+    }
+
+    /// The winning probability per pixel: low values mark where the model is unsure.
+    pub fn confidence(&self) -> Vec<f32> {
+        self.data
+            .chunks_exact(self.n_classes)
+            .map(|p| p.iter().copied().fold(0.0, f32::max))
+            .collect()
+    }
+
+    /// One class's probability as a plane.
+    pub fn class_plane(&self, class: usize) -> Plane {
+        let data = self
+            .data
+            .iter()
+            .skip(class)
+            .step_by(self.n_classes)
+            .copied()
+            .collect();
+        Plane::from_vec(self.width, self.height, data)
+    }
+}
+
+fn sha256_hex(path: &std::path::Path) -> Result<String> {
+    let bytes = std::fs::read(path).map_err(|e| GroveError::io(path, e))?;
+    Ok(Sha256::digest(&bytes)
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect())
+}
+
+/// Rows of `responses` at `pixels`, pixel-major (the k-means input).
+fn gather(planes: &[Plane], pixels: &[u32]) -> Vec<f32> {
+    let f = planes.len();
+    let mut out = vec![0.0; pixels.len() * f];
+    for (j, p) in planes.iter().enumerate() {
+        for (r, &i) in pixels.iter().enumerate() {
+            out[r * f + j] = p.data[i as usize];
+        }
+    }
+    out
+}
+
+impl TrainConfig {
+    pub fn validate(&self) -> Result<()> {
+        self.features.validate()?;
+        self.forest.validate()?;
+        if self.samples_per_image == 0 {
+            return Err(GroveError::Config(
+                "samples per image must be positive".into(),
+            ));
+        }
+        Ok(())
+    }
+
+    /// Trains on the labelled images `entries` of `dataset`.
+    pub fn fit(
+        &self,
+        dataset: &Dataset,
+        entries: &[&ImageEntry],
+        progress: Progress,
+    ) -> Result<Segmenter> {
+        self.validate()?;
+        if entries.is_empty() {
+            return Err(GroveError::Data(format!(
+                "{}: no labelled images to train on (labels/NAME.png next to images/NAME.*)",
+                dataset.root.display()
+            )));
+        }
+        let n_classes = dataset.classes.len();
+        let bar = progress.stage("reading", entries.len() as u64);
+        let mut pairs: Vec<(RasterImage, LabelMap)> = Vec::with_capacity(entries.len());
+        let mut labelled = vec![0u64; n_classes];
+        let mut training_images = Vec::with_capacity(entries.len());
+        for e in entries {
+            let (img, lab) = dataset.load_pair(e)?;
+            let counts = lab.class_counts(n_classes);
+            labelled.iter_mut().zip(&counts).for_each(|(a, b)| *a += b);
+            training_images.push(TrainingImage {
+                name: e
+                    .image
+                    .file_name()
+                    .unwrap_or_default()
+                    .to_string_lossy()
+                    .into_owned(),
+                image_sha256: sha256_hex(&e.image)?,
+                labelled_pixels: counts.iter().sum(),
+            });
+            pairs.push((img, lab));
+            bar.inc(1);
+        }
+        bar.finish_and_clear();
+        for w in dataset.check_counts(&labelled)? {
+            eprintln!("warning: {w}");
+        }
+        let channels = if pairs.iter().any(|(img, _)| !img.is_grey()) {
+            3
+        } else {
+            1
+        };
+        let mut extractor = FeatureExtractor {
+            config: self.features.clone(),
+            channels,
+            textons: None,
+        };
+
+        // Pass 1: filter responses; sample pixels for k-means and for the forest.
+        let bar = progress.stage("filtering", pairs.len() as u64);
+        let per_image_bytes = |img: &RasterImage| {
+            img.width
+                * img.height
+                * 4
+                * crate::features::bank::filter_bank_names(channels, &self.features.bank).len()
+        };
+        let mut cache_left = self.cache_bytes;
+        let mut cached: Vec<Option<Vec<Plane>>> = Vec::with_capacity(pairs.len());
+        let mut kmeans_rows: Vec<f32> = Vec::new();
+        let mut forest_pixels: Vec<Vec<u32>> = Vec::with_capacity(pairs.len());
+        for (i, (img, lab)) in pairs.iter().enumerate() {
+            let mut rng = ChaCha8Rng::seed_from_u64(self.seed);
+            rng.set_stream(i as u64);
+            forest_pixels.push(balanced_sample(
+                lab,
+                n_classes,
+                self.samples_per_image,
+                &mut rng,
+            ));
+            if self.features.textons == 0 {
+                cached.push(None);
+                bar.inc(1);
+                continue;
+            }
+            let responses = extractor.responses(img);
+            let px = uniform_sample(
+                img.width * img.height,
+                self.features.texton_samples_per_image,
+                &mut rng,
+            );
+            kmeans_rows.extend(gather(&responses, &px));
+            let bytes = per_image_bytes(img);
+            if bytes <= cache_left {
+                cache_left -= bytes;
+                cached.push(Some(responses));
+            } else {
+                cached.push(None);
+            }
+            bar.inc(1);
+        }
+        bar.finish_and_clear();
+
+        if self.features.textons > 0 {
+            let dim = crate::features::bank::filter_bank_names(channels, &self.features.bank).len();
+            let km = KMeansConfig {
+                k: self.features.textons,
+                max_iter: self.features.kmeans_iterations,
+                seed: self.seed,
+                ..KMeansConfig::default()
+            };
+            let n_rows = kmeans_rows.len() / dim;
+            if n_rows < self.features.textons {
+                return Err(GroveError::Data(format!(
+                    "only {n_rows} pixels to build {} textons; use fewer textons or more images",
+                    self.features.textons
+                )));
+            }
+            extractor.textons = Some(TextonDictionary::fit(&kmeans_rows, dim, &km)?);
+        }
+        drop(kmeans_rows);
+
+        // Pass 2: full feature stacks, rows at the sampled pixels.
+        let bar = progress.stage("features", pairs.len() as u64);
+        let n_features = extractor.n_features();
+        let total: usize = forest_pixels.iter().map(Vec::len).sum();
+        let mut x: Vec<f32> = Vec::with_capacity(total * n_features);
+        let mut y: Vec<u32> = Vec::with_capacity(total);
+        let mut sampled = vec![0u64; n_classes];
+        for (((img, lab), pixels), cache) in pairs.iter().zip(&forest_pixels).zip(cached) {
+            let responses = cache.unwrap_or_else(|| extractor.responses(img));
+            let stack = extractor.stack(responses);
+            x.extend(stack.gather_rows(pixels));
+            for &p in pixels {
+                let c = lab.indices[p as usize];
+                debug_assert_ne!(c, UNLABELLED);
+                sampled[c as usize] += 1;
+                y.push(c as u32);
+            }
+            bar.inc(1);
+        }
+        bar.finish_and_clear();
+
+        let spinner = progress.stage("forest", 1);
+        let forest = RandomForest::fit(&self.forest, &x, n_features, &y, n_classes)?;
+        spinner.finish_and_clear();
+        let created_unix = std::time::SystemTime::now()
+            .duration_since(std::time::UNIX_EPOCH)
+            .map(|d| d.as_secs())
+            .unwrap_or(0);
+        Ok(Segmenter {
+            classes: dataset.classes.clone(),
+            provenance: Provenance {
+                grove_version: env!("CARGO_PKG_VERSION").to_string(),
+                training_images,
+                samples_per_class: sampled,
+                labelled_per_class: labelled,
+                oob_accuracy: forest.oob_accuracy(),
+                seed: self.seed,
+                created_unix,
+                config: self.clone(),
+            },
+            features: extractor,
+            forest,
+        })
+    }
+}
+
+/// Pixels per block when walking an image through the forest (the measured sweet spot
+/// for keeping one block's rows and the trees' nodes in cache, see DESIGN notes).
+const BLOCK: usize = 4096;
+
+impl Segmenter {
+    /// Per-pixel class probabilities for one image.
+    pub fn predict_proba(&self, image: &RasterImage) -> Probabilities {
+        let stack = self.features.features(image);
+        let (f, k) = (stack.n_features(), self.classes.len());
+        let n = stack.width * stack.height;
+        let mut data = vec![0.0f32; n * k];
+        data.par_chunks_mut(BLOCK * k)
+            .enumerate()
+            .for_each(|(b, out)| {
+                let start = b * BLOCK;
+                let rows = out.len() / k;
+                let mut buf = vec![0.0f32; rows * f];
+                stack.rows_into(start, &mut buf);
+                self.forest.predict_proba_into(&buf, out);
+            });
+        Probabilities {
+            width: stack.width,
+            height: stack.height,
+            n_classes: k,
+            data,
+        }
+    }
+
+    /// Feature names with the forest's impurity importances, most important first.
+    pub fn ranked_importances(&self) -> Vec<(String, f64)> {
+        let mut v: Vec<(String, f64)> = self
+            .features
+            .names()
+            .into_iter()
+            .zip(self.forest.feature_importances().iter().copied())
+            .collect();
+        v.sort_by(|a, b| b.1.total_cmp(&a.1));
+        v
+    }
+}

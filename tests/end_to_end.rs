@@ -1,0 +1,154 @@
+//! The commands end to end through the `grove` binary, on the built-in demo scenes.
+
+use std::path::Path;
+use std::process::Command;
+
+fn grove(args: &[&str]) -> String {
+    let out = Command::new(env!("CARGO_BIN_EXE_grove"))
+        .args(args)
+        .output()
+        .unwrap();
+    let stdout = String::from_utf8_lossy(&out.stdout).into_owned();
+    assert!(
+        out.status.success(),
+        "grove {args:?} failed:\n{stdout}\n{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    stdout
+}
+
+fn read_json(path: &Path) -> serde_json::Value {
+    serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
+}
+
+/// The bar for the demo: held-out mean IoU ≥ 0.90 with default settings.
+#[test]
+fn demo_reaches_its_quality_bar_and_writes_everything() {
+    let t = tempfile::tempdir().unwrap();
+    let out = t.path().join("demo");
+    let text = grove(&["demo", "--out", out.to_str().unwrap()]);
+    let m = read_json(&out.join("metrics.json"));
+    for key in [
+        "pixel_accuracy",
+        "mean_iou",
+        "mean_class_accuracy",
+        "per_class_iou",
+        "confusion",
+        "classes",
+    ] {
+        assert!(m.get(key).is_some(), "metrics.json lacks {key}");
+    }
+    let miou = m["mean_iou"].as_f64().unwrap();
+    assert!(
+        miou >= 0.90,
+        "demo held-out mean IoU {miou:.4} < 0.90\n{text}"
+    );
+    let n_images = std::fs::read_dir(out.join("train/images")).unwrap().count()
+        + std::fs::read_dir(out.join("test/images")).unwrap().count();
+    for sub in ["labels", "overlays", "confidence"] {
+        let n = std::fs::read_dir(out.join("predictions").join(sub))
+            .unwrap()
+            .count();
+        assert_eq!(n, n_images, "predictions/{sub}");
+    }
+}
+
+/// train → eval --json → apply, as a user would type them; the label maps written by
+/// apply are themselves valid label files for the same class table.
+#[test]
+fn train_eval_apply_commands() {
+    let t = tempfile::tempdir().unwrap();
+    let root = t.path();
+    grove::demo::write_demo_dataset(&root.join("train"), 0..3, 128, 3).unwrap();
+    grove::demo::write_demo_dataset(&root.join("test"), 3..5, 128, 3).unwrap();
+    let model = root.join("m.grove");
+    let s = |p: &Path| p.to_str().unwrap().to_string();
+    grove(&[
+        "train",
+        &s(&root.join("train")),
+        "--model",
+        &s(&model),
+        "--trees",
+        "8",
+        "--textons",
+        "8",
+        "--threads",
+        "1",
+    ]);
+    let json = root.join("scores.json");
+    let text = grove(&[
+        "eval",
+        &s(&model),
+        &s(&root.join("test")),
+        "--json",
+        &s(&json),
+    ]);
+    assert!(
+        text.contains("mean IoU") && text.contains("confusion matrix"),
+        "{text}"
+    );
+    let m = read_json(&json);
+    assert_eq!(
+        m["classes"].as_array().unwrap().len(),
+        m["confusion"].as_array().unwrap().len()
+    );
+    let out = root.join("out");
+    grove(&[
+        "apply",
+        &s(&model),
+        &s(&root.join("test")),
+        "--out",
+        &s(&out),
+        "--probabilities",
+        "--confidence",
+    ]);
+    assert!(out.join("labels/farm_003.png").is_file());
+    assert!(out.join("confidence/farm_004.png").is_file());
+    assert!(
+        out.join("probabilities/farm_004")
+            .read_dir()
+            .unwrap()
+            .count()
+            >= 2
+    );
+    // Feed the predictions back as labels: they must decode through the class table.
+    let ds = grove::dataset::Dataset::open(&root.join("test"), Default::default()).unwrap();
+    let back = ds.read_labels(&out.join("labels/farm_003.png")).unwrap();
+    assert_eq!(back.indices.len(), 128 * 128);
+    // No temporary files left behind.
+    let stray = std::fs::read_dir(out.join("labels"))
+        .unwrap()
+        .filter(|e| {
+            e.as_ref()
+                .unwrap()
+                .file_name()
+                .to_string_lossy()
+                .starts_with(".grove-tmp")
+        })
+        .count();
+    assert_eq!(stray, 0);
+}
+
+/// Same seed → identical model bytes whether training runs on 1 or 2 threads.
+#[test]
+fn model_bytes_do_not_depend_on_thread_count() {
+    let t = tempfile::tempdir().unwrap();
+    grove::demo::write_demo_dataset(t.path(), 0..3, 96, 11).unwrap();
+    let ds = grove::dataset::Dataset::open(t.path(), Default::default()).unwrap();
+    let mut cfg = grove::segmenter::TrainConfig::default();
+    cfg.forest.n_trees = 6;
+    cfg.features.textons = 8;
+    let bytes = |threads: usize| {
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap();
+        let mut m = pool.install(|| cfg.fit(&ds, &ds.labelled(), Default::default()).unwrap());
+        m.provenance.created_unix = 0;
+        grove::model::to_bytes(&m)
+    };
+    assert!(
+        bytes(1) == bytes(2),
+        "model bytes differ between 1 and 2 threads"
+    );
+}

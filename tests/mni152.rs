@@ -22,10 +22,10 @@ fn mni152_held_out_mean_iou_at_least_0_93() {
         .fit(&ds, train, Progress::default())
         .unwrap();
     let cm = evaluate(&model, &ds, test, Progress::default()).unwrap();
-    let miou = cm.mean_iou();
+    let miou = cm.mean_iou().unwrap();
     eprintln!(
         "mni152 held-out: mean IoU {miou:.4}, pixel accuracy {:.4}",
-        cm.pixel_accuracy()
+        cm.pixel_accuracy().unwrap()
     );
     assert!(miou >= 0.93, "mean IoU {miou:.4} < 0.93");
 }

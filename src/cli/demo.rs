@@ -5,14 +5,14 @@ use std::time::Instant;
 
 use clap::Args;
 
-use crate::dataset::{Dataset, LabelOptions};
+use crate::dataset::{Dataset, ImageEntry, LabelOptions};
 use crate::demo::write_demo_dataset;
 use crate::error::Result;
-use crate::eval::score::{evaluate, MetricsReport};
-use crate::imageio::{read_image, write_atomic};
+use crate::eval::score::{evaluate_with, MetricsReport};
+use crate::imageio::{read_image, write_atomic, RasterImage};
 use crate::outputs::{write_outputs, OutputOptions};
 use crate::progress::Progress;
-use crate::segmenter::TrainConfig;
+use crate::segmenter::{Probabilities, TrainConfig};
 
 #[derive(Args, Debug)]
 pub struct DemoArgs {
@@ -71,7 +71,15 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
     );
 
     let test = Dataset::open(&test_dir, LabelOptions::default())?;
-    let cm = evaluate(&model, &test, &test.labelled(), progress)?;
+    let pred_dir = out.join("predictions");
+    let opts = OutputOptions {
+        confidence: true,
+        ..OutputOptions::default()
+    };
+    let deliver = |e: &ImageEntry, img: &RasterImage, probs: &Probabilities| {
+        write_outputs(&pred_dir, &e.stem, img, probs, &model.classes, &opts).map(|_| ())
+    };
+    let cm = evaluate_with(&model, &test, &test.labelled(), progress, deliver)?;
     let report = MetricsReport::new(
         &cm,
         &model.classes,
@@ -80,18 +88,9 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
     println!("\nheld-out scores:\n{}", report.to_table());
     let metrics_path = out.join("metrics.json");
     write_atomic(&metrics_path, report.to_json().as_bytes())?;
-
-    let pred_dir = out.join("predictions");
-    let opts = OutputOptions {
-        confidence: true,
-        ..OutputOptions::default()
-    };
-    for ds in [&train, &test] {
-        for e in &ds.entries {
-            let img = read_image(&e.image)?;
-            let probs = model.predict_proba(&img);
-            write_outputs(&pred_dir, &e.stem, &img, &probs, &model.classes, &opts)?;
-        }
+    for e in &train.entries {
+        let img = read_image(&e.image)?;
+        deliver(e, &img, &model.predict_proba(&img))?;
     }
     println!("outputs:");
     let show = |what: &str, p: &Path| println!("  {what:<22} {}", p.display());

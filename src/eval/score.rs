@@ -5,8 +5,9 @@ use serde::Serialize;
 use crate::dataset::{ClassTable, Dataset, ImageEntry, UNLABELLED};
 use crate::error::{GroveError, Result};
 use crate::eval::confusion::ConfusionMatrix;
+use crate::imageio::RasterImage;
 use crate::progress::Progress;
-use crate::segmenter::Segmenter;
+use crate::segmenter::{Probabilities, Segmenter};
 
 /// The scores as written by `--json` and by the demo's `metrics.json`.
 #[derive(Clone, Debug, Serialize)]
@@ -123,12 +124,28 @@ pub fn evaluate(
     entries: &[&ImageEntry],
     progress: Progress,
 ) -> Result<ConfusionMatrix> {
+    evaluate_with(model, dataset, entries, progress, |_, _, _| Ok(()))
+}
+
+/// As [`evaluate`], handing each prediction to `visit` (e.g. to write outputs) so an image
+/// that is both scored and delivered is predicted once.
+pub fn evaluate_with<F>(
+    model: &Segmenter,
+    dataset: &Dataset,
+    entries: &[&ImageEntry],
+    progress: Progress,
+    mut visit: F,
+) -> Result<ConfusionMatrix>
+where
+    F: FnMut(&ImageEntry, &RasterImage, &Probabilities) -> Result<()>,
+{
     let mut cm = ConfusionMatrix::new(model.classes.len());
     let bar = progress.stage("scoring", entries.len() as u64);
     for e in entries {
         let (img, labels) = dataset.load_pair(e)?;
-        let pred = model.predict_proba(&img).argmax();
-        cm.add(&labels.indices, &pred, Some(UNLABELLED as u32))?;
+        let probs = model.predict_proba(&img);
+        cm.add(&labels.indices, &probs.argmax(), Some(UNLABELLED as u32))?;
+        visit(e, &img, &probs)?;
         bar.inc(1);
     }
     bar.finish_and_clear();

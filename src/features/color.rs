@@ -99,6 +99,12 @@ fn linear_to_lab(lin: [f64; 3]) -> [f32; 3] {
 }
 
 /// CIE Lab (D65) of one sRGB-encoded colour with components in `[0, 1]` (module doc formula).
+///
+/// ```
+/// use grove::features::color::srgb_to_lab;
+/// let [l, a, b] = srgb_to_lab([1.0, 0.0, 0.0]); // sRGB red: Lab ≈ (53.24, 80.09, 67.20)
+/// assert!((l - 53.24).abs() < 0.01 && (a - 80.09).abs() < 0.01 && (b - 67.20).abs() < 0.01);
+/// ```
 pub fn srgb_to_lab(rgb: [f32; 3]) -> [f32; 3] {
     linear_to_lab([decode(rgb[0]), decode(rgb[1]), decode(rgb[2])])
 }

@@ -468,6 +468,13 @@ where
 
 /// Gaussian smoothing, `g_y * g_x * p`, equal to `scipy.ndimage.gaussian_filter(p, sigma)`
 /// (truncate 4, mode `reflect`). Panics if `sigma` is not positive and finite.
+///
+/// ```
+/// use grove::{features::gaussian::gaussian, Plane};
+/// // The kernel sums to 1 and reflection keeps a constant constant.
+/// let p = Plane::filled(5, 4, 2.0);
+/// assert!(gaussian(&p, 1.5).data.iter().all(|v| (v - 2.0).abs() < 1e-5));
+/// ```
 pub fn gaussian(p: &Plane, sigma: f32) -> Plane {
     let need = Need {
         smooth: true,
@@ -481,6 +488,16 @@ pub fn gaussian(p: &Plane, sigma: f32) -> Plane {
 /// All six Gaussian-derivative responses at scale `sigma`; each equals
 /// `scipy.ndimage.gaussian_filter(p, sigma, order=(oy, ox))` for the matching orders
 /// (`dx` ↔ `(0, 1)`, `dyy` ↔ `(2, 0)`, `dxy` ↔ `(1, 1)`, ...).
+///
+/// ```
+/// use grove::{features::gaussian::derivatives, Plane};
+/// // On the ramp p = 3x, away from the edges: dx ≈ 3, dy = 0, second derivatives ≈ 0.
+/// let p = Plane::from_vec(20, 3, (0..60).map(|i| 3.0 * (i % 20) as f32).collect());
+/// let d = derivatives(&p, 1.0);
+/// assert!((d.dx.get(10, 1) - 3.0).abs() < 1e-3);
+/// // (dxx is not exactly 0: the truncated, sampled order-2 kernel does not sum to exactly 0.)
+/// assert!(d.dy.get(10, 1).abs() < 1e-4 && d.dxx.get(10, 1).abs() < 1e-2);
+/// ```
 pub fn derivatives(p: &Plane, sigma: f32) -> GaussianDerivatives {
     let mut planes = map_responses(p, sigma, Need::ALL, 6, |r, out| {
         out[0].copy_from_slice(r.smooth);
@@ -635,7 +652,8 @@ mod tests {
             .map(|_| (0..n).map(|_| rng.gen_range(-50.0f32..50.0)).collect())
             .collect();
         let taps: Vec<&[f32]> = lines.iter().map(|l| l.as_slice()).collect();
-        let run = |f: &dyn Fn(&mut [f32], &mut [f32], &mut [f32])| {
+        type ThreeOutputs<'a> = dyn Fn(&mut [f32], &mut [f32], &mut [f32]) + 'a;
+        let run = |f: &ThreeOutputs| {
             let (mut a, mut b, mut c) = (vec![0f32; n], vec![0f32; n], vec![0f32; n]);
             f(&mut a, &mut b, &mut c);
             (a, b, c)

@@ -16,8 +16,12 @@ use serde::{Deserialize, Serialize};
 /// Added to every standard deviation, as in the reference pipeline (`X.std(0) + 1e-6`).
 const SCALE_EPSILON: f64 = 1e-6;
 
-/// Largest accepted histogram window: keeps window² (the pixel count of a window) exact in u64.
-pub const MAX_WINDOW: usize = (1 << 31) - 1;
+/// Pixels scored together in [`TextonDictionary::assign_planes`] (four SSE registers).
+const PIXEL_BLOCK: usize = 16;
+
+/// Largest accepted histogram window: window² (the pixel count of a window) must fit in u32.
+/// Far beyond any useful texture scale (the reference default is 15).
+pub const MAX_WINDOW: usize = 65_535;
 
 /// A fitted texton dictionary: standardisation + k-means centres in standardised space.
 #[derive(Clone, Debug, Serialize, Deserialize)]
@@ -80,9 +84,12 @@ impl TextonDictionary {
     /// to `z_d = (responses[d](p) − mean_d) / scale_d`; row-major, `width × height` entries.
     ///
     /// Reads the planes directly, one image row at a time (rows in parallel): each response row
-    /// is standardised once, then `score_j = ‖c_j‖²/2 − z·c_j` (the squared distance minus the
-    /// `‖z‖²/2` that all centres share, halved) is accumulated centre by centre along the row,
-    /// which vectorises over pixels. Ties → lowest id. Mathematically identical to
+    /// is standardised once into a small row buffer, then for blocks of 16 pixels
+    /// `score_j = ‖c_j‖²/2 − z·c_j` (the squared distance minus the `‖z‖²/2` that all centres
+    /// share, halved) is accumulated in registers, vectorised over the pixels of the block.
+    /// Measured on one core (512², 44 responses, k = 32): ~50 ms CPU, against ~55 ms for
+    /// accumulating whole score rows in memory — close to the SSE2 multiply-add limit for the
+    /// 369 M multiply-adds. Ties → lowest id. Mathematically identical to
     /// [`KMeans::nearest`] on standardised rows; only f32 rounding differs, so exact near-ties
     /// may resolve differently.
     ///
@@ -101,41 +108,45 @@ impl TextonDictionary {
                 .all(|p| p.width == width && p.height == height),
             "textons: response planes differ in size"
         );
-        let k = self.k();
         let centres = self.kmeans.centroids();
         let half_norms: Vec<f32> = centres
             .chunks_exact(dim)
             .map(|c| 0.5 * c.iter().map(|&v| v as f64 * v as f64).sum::<f64>() as f32)
             .collect();
         let inv_scale: Vec<f32> = self.scale.iter().map(|&s| 1.0 / s).collect();
+        // Row buffer of standardised responses, plane-major (`z[d * padded + x]`), padded to a
+        // whole number of pixel blocks with zeros (their ids are never written out).
+        let padded = width.div_ceil(PIXEL_BLOCK) * PIXEL_BLOCK;
         let mut ids = vec![0u16; width * height];
         ids.par_chunks_mut(width).enumerate().for_each_init(
-            || (vec![0.0f32; width], vec![0.0f32; k * width]),
-            |(z, scores), (y, out)| {
-                for (j, s) in scores.chunks_exact_mut(width).enumerate() {
-                    s.fill(half_norms[j]);
-                }
+            || vec![0.0f32; dim * padded],
+            |z, (y, out)| {
                 for d in 0..dim {
                     let (m, is) = (self.mean[d], inv_scale[d]);
-                    for (zv, &v) in z.iter_mut().zip(responses[d].row(y)) {
+                    for (zv, &v) in z[d * padded..].iter_mut().zip(responses[d].row(y)) {
                         *zv = (v - m) * is;
                     }
-                    for (j, s) in scores.chunks_exact_mut(width).enumerate() {
-                        let c = centres[j * dim + d];
-                        for (sv, &zv) in s.iter_mut().zip(z.iter()) {
-                            *sv -= c * zv;
-                        }
-                    }
                 }
-                for (x, o) in out.iter_mut().enumerate() {
-                    let mut best = (0usize, scores[x]);
-                    for j in 1..k {
-                        let s = scores[j * width + x];
-                        if s < best.1 {
-                            best = (j, s);
+                for (b, out) in out.chunks_mut(PIXEL_BLOCK).enumerate() {
+                    let x0 = b * PIXEL_BLOCK;
+                    let mut best = [(0u16, f32::INFINITY); PIXEL_BLOCK];
+                    for (j, c) in centres.chunks_exact(dim).enumerate() {
+                        let mut score = [half_norms[j]; PIXEL_BLOCK];
+                        for (d, &cd) in c.iter().enumerate() {
+                            let zb = &z[d * padded + x0..d * padded + x0 + PIXEL_BLOCK];
+                            for (s, &zv) in score.iter_mut().zip(zb) {
+                                *s -= cd * zv;
+                            }
+                        }
+                        for (bst, &s) in best.iter_mut().zip(&score) {
+                            if s < bst.1 {
+                                *bst = (j as u16, s);
+                            }
                         }
                     }
-                    *o = best.0 as u16;
+                    for (o, bst) in out.iter_mut().zip(&best) {
+                        *o = bst.0;
+                    }
                 }
             },
         );
@@ -181,8 +192,17 @@ impl TextonDictionary {
 /// Cost does not depend on the window: each axis is a difference of two prefix sums over one
 /// reflected period (`s` followed by `s` reversed), extended periodically —
 /// `F(m) = ⌊m / 2n⌋ · total + P[m mod 2n]`, window sum at i = `F(i + r + 1) − F(i − r)` — first
-/// along rows, then along columns, in exact integer arithmetic. Textons are processed in
-/// parallel.
+/// along rows, then along columns, in exact integer arithmetic (`count / window²` is then
+/// rounded once to f32). Textons are processed in parallel.
+///
+/// ```
+/// use grove::features::textons::texton_histograms;
+/// // One row "0 1 1", window 3: at x = 0 the reflected columns are (0 | 0 1) → textons 0, 0, 1,
+/// // and the single row is reflected into all three window rows.
+/// let h = texton_histograms(&[0, 1, 1], 3, 1, 2, 3).unwrap();
+/// assert!((h[0].data[0] - 6.0 / 9.0).abs() < 1e-7);
+/// assert!((h[1].data[0] - 3.0 / 9.0).abs() < 1e-7);
+/// ```
 ///
 /// Errors: `window` even, 0 or > [`MAX_WINDOW`]; `k == 0`; a texton id ≥ `k`.
 /// Panics (programming error) if `map.len() != width * height`.
@@ -213,11 +233,14 @@ pub fn texton_histograms(
         return Ok((0..k).map(|_| Plane::filled(width, height, 0.0)).collect());
     }
     let r = (window / 2) as i64;
-    let inv_area = 1.0 / (window as f64 * window as f64);
+    let area = (window * window) as f64;
+    // Counts use wrapping u32 arithmetic: the prefix sums may exceed 2^32 on tall images, but
+    // the final count is a ring expression (+, −, ×) whose true value ≤ window² < 2^32, so it
+    // comes out exact modulo 2^32 — and u32 keeps the buffers small and the loops vectorised.
+    let split = |m: i64, period: i64| (m.div_euclid(period) as u32, m.rem_euclid(period) as usize);
     // The (period count, offset) pairs of F(x + r + 1) and F(x − r) depend only on x: computed
     // once, so the per-pixel work has no integer division.
-    let split = |m: i64, period: i64| (m.div_euclid(period) as u64, m.rem_euclid(period) as usize);
-    let x_bounds: Vec<[(u64, usize); 2]> = (0..width as i64)
+    let x_bounds: Vec<[(u32, usize); 2]> = (0..width as i64)
         .map(|x| {
             [
                 split(x + r + 1, 2 * width as i64),
@@ -232,25 +255,31 @@ pub fn texton_histograms(
             // cost more in page faults than the arithmetic.
             || {
                 (
-                    vec![0u64; 2 * width + 1],
-                    vec![0u64; width * height],
-                    vec![0u64; (2 * height + 1) * width],
+                    vec![0u32; 2 * width + 1],
+                    vec![0u32; width * height],
+                    vec![0u32; (2 * height + 1) * width],
                 )
             },
             |(prefix, horizontal, rows), j| {
                 let j = j as u16;
-                // Horizontal window counts, per row.
+                // Horizontal window counts, per row: prefix over the row then the row reversed.
                 for (src, dst) in map
                     .chunks_exact(width)
                     .zip(horizontal.chunks_exact_mut(width))
                 {
-                    for t in 0..2 * width {
-                        let x = if t < width { t } else { 2 * width - 1 - t };
-                        prefix[t + 1] = prefix[t] + u64::from(src[x] == j);
+                    let mut acc = 0u32;
+                    for (p, &t) in prefix[1..]
+                        .iter_mut()
+                        .zip(src.iter().chain(src.iter().rev()))
+                    {
+                        acc += u32::from(t == j);
+                        *p = acc;
                     }
-                    let total = prefix[2 * width];
                     for (d, [(q1, t1), (q0, t0)]) in dst.iter_mut().zip(&x_bounds) {
-                        *d = (q1 * total + prefix[*t1]) - (q0 * total + prefix[*t0]);
+                        *d = (q1.wrapping_sub(*q0))
+                            .wrapping_mul(acc)
+                            .wrapping_add(prefix[*t1])
+                            .wrapping_sub(prefix[*t0]);
                     }
                 }
                 // Vertical window sums of the horizontal counts: prefix rows over one reflected
@@ -261,22 +290,21 @@ pub fn texton_histograms(
                     let prev = &done[t * width..];
                     let src = &horizontal[y * width..(y + 1) * width];
                     for ((n, &p), &s) in next[..width].iter_mut().zip(prev).zip(src) {
-                        *n = p + s;
+                        *n = p.wrapping_add(s);
                     }
                 }
                 let period = 2 * height as i64;
                 let total = &rows[2 * height * width..];
-                let row_at = |m: i64| {
-                    let (q, t) = split(m, period);
-                    (q, &rows[t * width..(t + 1) * width])
-                };
                 let mut out = vec![0.0f32; width * height];
                 for (y, dst) in out.chunks_exact_mut(width).enumerate() {
-                    let (q1, hi) = row_at(y as i64 + r + 1);
-                    let (q0, lo) = row_at(y as i64 - r);
+                    let (q1, t1) = split(y as i64 + r + 1, period);
+                    let (q0, t0) = split(y as i64 - r, period);
+                    let dq = q1.wrapping_sub(q0);
+                    let hi = &rows[t1 * width..(t1 + 1) * width];
+                    let lo = &rows[t0 * width..(t0 + 1) * width];
                     for (((d, &tot), &h), &l) in dst.iter_mut().zip(total).zip(hi).zip(lo) {
-                        let count = (q1 * tot + h) - (q0 * tot + l);
-                        *d = (count as f64 * inv_area) as f32;
+                        let count = dq.wrapping_mul(tot).wrapping_add(h).wrapping_sub(l);
+                        *d = (count as f64 / area) as f32;
                     }
                 }
                 Plane::from_vec(width, height, out)

@@ -3,6 +3,7 @@
 mod apply;
 mod demo;
 mod eval;
+mod info;
 mod train;
 
 use clap::{Parser, Subcommand};
@@ -33,6 +34,8 @@ enum Command {
     Eval(eval::EvalArgs),
     /// Generate the synthetic farm dataset, train, score and apply, end to end.
     Demo(demo::DemoArgs),
+    /// Show what a model file holds: classes, training images, settings, top features.
+    Info(info::InfoArgs),
 }
 
 /// Parses arguments, runs the command and returns the process exit code.
@@ -58,6 +61,7 @@ pub fn run() -> i32 {
         Command::Apply(a) => apply::run(a, progress),
         Command::Eval(a) => eval::run(a, progress),
         Command::Demo(a) => demo::run(a, progress),
+        Command::Info(a) => info::run(a),
     };
     match result {
         Ok(()) => 0,

@@ -77,8 +77,12 @@ pub fn from_bytes(bytes: &[u8]) -> std::result::Result<Segmenter, String> {
     if stored != fnv1a(payload) {
         return Err("model file is damaged (checksum mismatch)".into());
     }
-    let (model, _) = bincode::serde::decode_from_slice(payload, bincode::config::standard())
-        .map_err(|e| format!("model payload cannot be read: {e}"))?;
+    let (model, _): (Segmenter, usize) =
+        bincode::serde::decode_from_slice(payload, bincode::config::standard())
+            .map_err(|e| format!("model payload cannot be read: {e}"))?;
+    model
+        .check()
+        .map_err(|e| format!("model is inconsistent ({e}); retrain it with this grove"))?;
     Ok(model)
 }
 

@@ -342,6 +342,36 @@ impl Segmenter {
         }
     }
 
+    /// Consistency of the parts of a segmenter read from a file: the stages must agree on
+    /// class and feature counts before any image is pushed through them.
+    pub fn check(&self) -> std::result::Result<(), String> {
+        self.forest.check()?;
+        if self.forest.n_classes() != self.classes.len() {
+            return Err("forest and class table disagree on the number of classes".into());
+        }
+        if !matches!(self.features.channels, 1 | 3) {
+            return Err(format!(
+                "invalid colour channel count {}",
+                self.features.channels
+            ));
+        }
+        self.features.config.validate().map_err(|e| e.to_string())?;
+        let bank = crate::features::bank::filter_bank_names(
+            self.features.channels,
+            &self.features.config.bank,
+        )
+        .len();
+        if let Some(t) = &self.features.textons {
+            if t.dim() != bank || t.k() != self.features.config.textons {
+                return Err("texton dictionary does not match the filter bank".into());
+            }
+        }
+        if self.features.n_features() != self.forest.n_features() {
+            return Err("forest and feature stack disagree on the number of features".into());
+        }
+        Ok(())
+    }
+
     /// Feature names with the forest's impurity importances, most important first.
     pub fn ranked_importances(&self) -> Vec<(String, f64)> {
         let mut v: Vec<(String, f64)> = self

@@ -3,10 +3,11 @@
 //!
 //! Growth: depth-first over a flat array of in-bag samples `(row, class, weight)`, partitioned
 //! in place node by node (stable, so each node's rows stay ascending and the gathers from the
-//! feature columns stay cache-friendly). Bootstrap duplicates are integer weights, not copied
-//! rows. At each node, features are drawn without replacement until `max_features` features
-//! that are not constant in the node have been scanned; for each, a per-bin class-count
-//! histogram is built over the node's samples and every bin boundary is scored.
+//! binned rows stay as cache-friendly as they can). Bootstrap duplicates are integer weights,
+//! not copied rows. At each node, features are drawn without replacement until `max_features`
+//! features that are not constant in the node have been scanned: the drawn batch's per-bin
+//! class-count histograms are built in one pass over the node's samples, then every bin
+//! boundary of each is scored.
 //!
 //! Why no histogram subtraction (build the smaller child, subtract it from the parent): with a
 //! fresh random feature subset per node, the parent's histograms are for other features, and
@@ -22,44 +23,115 @@ use serde::{Deserialize, Serialize};
 
 use super::bins::{BinEdges, BinnedMatrix};
 
-/// `Node::feature` of a leaf.
-const LEAF: u32 = u32::MAX;
-
 /// Smallest Gini decrease (in weighted samples) that justifies a split: zero-gain splits only
 /// add depth, and this is far above the f64 rounding of the sums (~1e-16 × N).
 const MIN_GAIN: f64 = 1e-7;
 
+/// Rows walked together through a tree. Independent walks let the CPU overlap their node
+/// loads instead of waiting for one row's chain of dependent loads at a time.
+const WALK_LANES: usize = 16;
+
 /// A split (`feature`, `threshold`, children at `next` and `next + 1`; `x ≤ threshold` goes
-/// left) or a leaf (`feature == LEAF`, class probabilities at `probs[next..next + n_classes]`).
-#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+/// left) or a leaf. A leaf has `threshold = NaN` and `next = own index − 1` (wrapping), so the
+/// step rule `next + (x ≤ threshold ? 0 : 1)` keeps a row on its leaf: walks can then take a
+/// fixed number of steps (the tree's depth) without a per-row exit branch.
+#[derive(Clone, Copy, Debug, Serialize, Deserialize)]
 struct Node {
     feature: u32,
     threshold: f32,
     next: u32,
 }
 
-/// A fitted tree: flat nodes (root at 0) and the leaves' probability vectors in one array.
-#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+impl Node {
+    #[inline]
+    fn step(&self, row: &[f32]) -> usize {
+        let go_left = row[self.feature as usize] <= self.threshold;
+        self.next.wrapping_add(u32::from(!go_left)) as usize
+    }
+}
+
+/// A fitted tree: flat nodes (root at 0), the leaves' probability vectors in one array, and for
+/// each node the start of its leaf vector in `probs` (unused for splits).
+#[derive(Clone, Debug, Serialize, Deserialize)]
 pub(crate) struct Tree {
     nodes: Vec<Node>,
+    leaf_start: Vec<u32>,
     probs: Vec<f32>,
+    depth: u32,
 }
 
 impl Tree {
     /// Class probabilities of the leaf that `row` (one row of features) reaches.
-    /// `x ≤ threshold` goes left, so NaN (never ≤) goes right.
-    #[inline]
+    /// `x ≤ threshold` goes left, so NaN (never ≤) goes right. The plain early-exit walk: the
+    /// reference that the lane-interleaved `accumulate_rows` is tested against.
+    #[cfg(test)]
     pub(crate) fn leaf_probs(&self, row: &[f32], n_classes: usize) -> &[f32] {
         let mut i = 0usize;
-        loop {
-            let node = self.nodes[i];
-            if node.feature == LEAF {
-                let start = node.next as usize;
-                return &self.probs[start..start + n_classes];
-            }
-            let go_left = row[node.feature as usize] <= node.threshold;
-            i = node.next as usize + usize::from(!go_left);
+        while !self.nodes[i].threshold.is_nan() {
+            i = self.nodes[i].step(row);
         }
+        self.leaf(i, n_classes)
+    }
+
+    #[inline]
+    fn leaf(&self, node: usize, n_classes: usize) -> &[f32] {
+        let start = self.leaf_start[node] as usize;
+        &self.probs[start..start + n_classes]
+    }
+
+    /// For each `i` in `rows`, adds the leaf vector of row `i` of `x` (row-major, rows of
+    /// `n_features`) to row `i` of `acc` (rows of `n_classes`). Same result as `leaf_probs` row
+    /// by row; rows are walked `WALK_LANES` at a time for memory-level parallelism.
+    pub(crate) fn accumulate_rows(
+        &self,
+        x: &[f32],
+        n_features: usize,
+        rows: &[u32],
+        acc: &mut [f32],
+        n_classes: usize,
+    ) {
+        let mut at = [0usize; WALK_LANES];
+        for group in rows.chunks(WALK_LANES) {
+            let at = &mut at[..group.len()];
+            at.fill(0);
+            for _ in 0..self.depth {
+                for (i, &r) in at.iter_mut().zip(group) {
+                    let r = r as usize;
+                    *i = self.nodes[*i].step(&x[r * n_features..(r + 1) * n_features]);
+                }
+            }
+            for (&i, &r) in at.iter().zip(group) {
+                let r = r as usize;
+                let sum = &mut acc[r * n_classes..(r + 1) * n_classes];
+                for (s, p) in sum.iter_mut().zip(self.leaf(i, n_classes)) {
+                    *s += p;
+                }
+            }
+        }
+    }
+
+    /// Structural check of a tree read from a file: every index the walk can follow stays in
+    /// bounds, so a damaged or mismatched model gives an error instead of a panic.
+    pub(crate) fn check(&self, n_features: usize, n_classes: usize) -> Result<(), String> {
+        let n = self.nodes.len();
+        if n == 0 || self.leaf_start.len() != n {
+            return Err("tree has no nodes or inconsistent leaf table".into());
+        }
+        for (i, node) in self.nodes.iter().enumerate() {
+            if self.leaf_start[i] as usize + n_classes > self.probs.len() {
+                return Err(format!("tree node {i} points past the leaf probabilities"));
+            }
+            if node.threshold.is_nan() {
+                if node.next.wrapping_add(1) as usize != i {
+                    return Err(format!("tree leaf {i} does not loop to itself"));
+                }
+            } else if node.feature as usize >= n_features || node.next as usize + 1 >= n {
+                return Err(format!(
+                    "tree node {i} refers to a missing feature or child"
+                ));
+            }
+        }
+        Ok(())
     }
 
     /// Number of nodes (splits and leaves).
@@ -95,24 +167,42 @@ struct Split {
     gain: f64,
 }
 
+/// An admissible boundary of a split scan (see `scan_histogram`).
+#[derive(Clone, Copy, Debug)]
+struct Candidate {
+    bin: u32,
+    n_left: f64,
+    sum_left: f64,
+    sum_right: f64,
+}
+
 /// Buffers reused across all nodes of a tree, so the split scan never allocates.
 struct Scratch {
-    /// `hist[b * n_classes + c]`: weight of class `c` in bin `b`; all zero between scans.
+    /// `hist[(j * MAX_BINS + b) * n_classes + c]`: weight of class `c` in bin `b` of the `j`-th
+    /// feature of the current batch; all zero between scans.
     hist: Vec<u32>,
-    /// Total weight per bin; all zero between scans.
-    bin_weight: Vec<u32>,
+    /// Lowest and highest bin touched per batch feature.
+    bounds: Vec<(usize, usize)>,
+    batch: Vec<usize>,
     left: Vec<u64>,
+    right: Vec<u64>,
+    candidates: Vec<Candidate>,
+    scores: Vec<f64>,
     totals: Vec<u64>,
     right_samples: Vec<Sample>,
 }
 
 impl Scratch {
-    fn new(n_classes: usize, capacity: usize) -> Self {
+    fn new(n_classes: usize, max_features: usize, capacity: usize) -> Self {
         let max_bins = super::bins::MAX_BINS;
         Self {
-            hist: vec![0; max_bins * n_classes],
-            bin_weight: vec![0; max_bins],
+            hist: vec![0; max_features * max_bins * n_classes],
+            bounds: vec![(0, 0); max_features],
+            batch: Vec::with_capacity(max_features),
             left: vec![0; n_classes],
+            right: vec![0; n_classes],
+            candidates: Vec::with_capacity(max_bins),
+            scores: Vec::with_capacity(max_bins),
             totals: vec![0; n_classes],
             right_samples: Vec::with_capacity(capacity),
         }
@@ -141,20 +231,25 @@ pub(crate) fn grow<R: Rng>(
             weight: w,
         })
         .collect();
-    let mut scratch = Scratch::new(n_classes, samples.len());
+    let mut scratch = Scratch::new(n_classes, params.max_features, samples.len());
     let mut perm: Vec<usize> = (0..n_features).collect();
     let mut importances = vec![0.0f64; n_features];
-    let mut nodes = vec![Node {
-        feature: LEAF,
-        threshold: 0.0,
+    // Placeholder for nodes not yet decided (every node ends up a split or a leaf).
+    let undecided = Node {
+        feature: 0,
+        threshold: f32::NAN,
         next: 0,
-    }];
+    };
+    let mut nodes = vec![undecided];
+    let mut leaf_start = vec![0u32];
     let mut probs = Vec::new();
+    let mut tree_depth = 0usize;
     let min_leaf = params.min_samples_leaf as u64;
 
     // (node index, sample range, depth)
     let mut stack = vec![(0usize, 0usize, samples.len(), 0usize)];
     while let Some((node, start, end, depth)) = stack.pop() {
+        tree_depth = tree_depth.max(depth);
         let node_samples = &samples[start..end];
         scratch.totals.iter_mut().for_each(|t| *t = 0);
         for s in node_samples {
@@ -182,20 +277,14 @@ pub(crate) fn grow<R: Rng>(
         };
         match split {
             Some(split) => {
-                let column = binned.column(split.feature);
                 let n_left = stable_partition(
                     &mut samples[start..end],
-                    |s| column[s.row as usize] as usize <= split.bin,
+                    |s| binned.row(s.row as usize)[split.feature] as usize <= split.bin,
                     &mut scratch.right_samples,
                 );
                 let left = nodes.len();
-                let leaf = Node {
-                    feature: LEAF,
-                    threshold: 0.0,
-                    next: 0,
-                };
-                nodes.push(leaf);
-                nodes.push(leaf);
+                nodes.extend([undecided; 2]);
+                leaf_start.extend([0; 2]);
                 nodes[node] = Node {
                     feature: split.feature as u32,
                     threshold: edges.upper_edge(split.feature, split.bin),
@@ -206,13 +295,20 @@ pub(crate) fn grow<R: Rng>(
                 stack.push((left, start, start + n_left, depth + 1));
             }
             None => {
-                nodes[node].next = probs.len() as u32;
+                nodes[node].next = (node as u32).wrapping_sub(1);
+                leaf_start[node] = probs.len() as u32;
                 let n = n_total as f64;
                 probs.extend(scratch.totals.iter().map(|&t| (t as f64 / n) as f32));
             }
         }
     }
-    (Tree { nodes, probs }, importances)
+    let tree = Tree {
+        nodes,
+        leaf_start,
+        probs,
+        depth: tree_depth as u32,
+    };
+    (tree, importances)
 }
 
 /// Uniform draws without replacement from `perm` (a lazy partial Fisher–Yates shuffle).
@@ -257,95 +353,154 @@ fn best_split(
         / n_total as f64;
     let mut best: Option<Split> = None;
     let mut scanned = 0;
-    for f in features {
-        if scanned == max_features {
+    let mut features = features;
+    // Draw just enough features to reach `max_features` non-constant ones, build their
+    // histograms in one pass over the node's samples, and repeat only if some were constant.
+    while scanned < max_features {
+        let mut batch = std::mem::take(&mut scratch.batch);
+        batch.clear();
+        batch.extend(features.by_ref().take(max_features - scanned));
+        if batch.is_empty() {
             break;
         }
-        let (non_constant, candidate) = scan_feature(
-            binned.column(f),
-            edges.n_bins(f),
-            samples,
-            n_total,
-            min_leaf,
-            scratch,
-        );
-        if !non_constant {
-            continue;
-        }
-        scanned += 1;
-        if let Some((bin, proxy)) = candidate {
-            let gain = proxy - parent_term;
-            if gain > MIN_GAIN && best.map_or(true, |b| gain > b.gain) {
-                best = Some(Split {
-                    feature: f,
-                    bin,
-                    gain,
-                });
+        build_histograms(binned, &batch, samples, scratch);
+        for (j, &f) in batch.iter().enumerate() {
+            let (non_constant, candidate) =
+                scan_histogram(j, edges.n_bins(f), n_total, min_leaf, scratch);
+            if !non_constant {
+                continue;
+            }
+            scanned += 1;
+            if let Some((bin, proxy)) = candidate {
+                let gain = proxy - parent_term;
+                if gain > MIN_GAIN && best.map_or(true, |b| gain > b.gain) {
+                    best = Some(Split {
+                        feature: f,
+                        bin,
+                        gain,
+                    });
+                }
             }
         }
+        scratch.batch = batch;
     }
     best
 }
 
-/// Builds the class histogram of one feature over `samples`, scores every boundary between
-/// non-empty bins by `Σ L_c²/N_L + Σ R_c²/N_R` (larger is better), and clears the histogram.
-/// Returns whether the feature has two or more non-empty bins, and the best admissible
-/// `(bin, score)`. Among equivalent boundaries (empty bins between two non-empty ones) the
-/// middle one is chosen, so the threshold sits mid-gap as with sorted-value trees.
-fn scan_feature(
-    column: &[u8],
-    n_bins: usize,
+/// Adds every sample's weight to the class histogram of each feature of `batch` (one pass
+/// over the samples). Deep nodes hold rows scattered over the whole matrix, so each sample costs
+/// a cache miss; with rows of codes stored together, that miss is paid once for all the batch's
+/// features instead of once per feature, as a feature-major layout would.
+fn build_histograms(
+    binned: &BinnedMatrix,
+    batch: &[usize],
     samples: &[Sample],
+    scratch: &mut Scratch,
+) {
+    let n_classes = scratch.totals.len();
+    let stride = super::bins::MAX_BINS * n_classes;
+    let Scratch { hist, bounds, .. } = scratch;
+    let bounds = &mut bounds[..batch.len()];
+    bounds.fill((usize::MAX, 0));
+    for s in samples {
+        let row = binned.row(s.row as usize);
+        let class = s.class as usize;
+        for ((j, &f), (lo, hi)) in batch.iter().enumerate().zip(bounds.iter_mut()) {
+            let b = row[f] as usize;
+            hist[j * stride + b * n_classes + class] += s.weight;
+            *lo = (*lo).min(b);
+            *hi = (*hi).max(b);
+        }
+    }
+}
+
+/// Scores every boundary between non-empty bins of batch feature `j`'s histogram by
+/// `Σ L_c²/N_L + Σ R_c²/N_R` (larger is better), and clears the histogram. Returns whether the
+/// feature has two or more non-empty bins, and the best admissible `(bin, score)`. Among
+/// equivalent boundaries (empty bins between two non-empty ones) the middle one is chosen, so
+/// the threshold sits mid-gap as with sorted-value trees.
+fn scan_histogram(
+    j: usize,
+    n_bins: usize,
     n_total: u64,
     min_leaf: u64,
     scratch: &mut Scratch,
 ) -> (bool, Option<(usize, f64)>) {
     let n_classes = scratch.totals.len();
+    let stride = super::bins::MAX_BINS * n_classes;
+    let (lo, hi) = scratch.bounds[j];
     let Scratch {
         hist,
-        bin_weight,
         left,
+        right,
         totals,
+        candidates,
+        scores,
         ..
     } = scratch;
-    for s in samples {
-        let b = column[s.row as usize] as usize;
-        hist[b * n_classes + s.class as usize] += s.weight;
-        bin_weight[b] += s.weight;
+    let hist = &mut hist[j * stride..(j + 1) * stride];
+    // Class weights left/right of the boundary and their sums of squares, updated
+    // incrementally per bin (`(L+h)² − L² = h(2L+h)`, `R² − (R−h)² = h(2R−h)`) in integers:
+    // exact, and short dependency chains. The forest caps N below 2^31, so Σ ≤ N² fits i64,
+    // whose conversion to f64 is one instruction (u64's is not, before AVX-512).
+    for ((l, r), &t) in left.iter_mut().zip(right.iter_mut()).zip(totals.iter()) {
+        *l = 0;
+        *r = t;
     }
-    left.iter_mut().for_each(|l| *l = 0);
+    let (mut sum_left, mut sum_right) = (0u64, right.iter().map(|r| r * r).sum::<u64>());
     let mut n_left = 0u64;
     let mut previous: Option<usize> = None;
     let mut non_empty = 0usize;
-    let mut best: Option<(usize, f64)> = None;
-    for b in 0..n_bins {
-        if bin_weight[b] == 0 {
+    // Pass 1 (integers, sequential): the admissible boundaries and their sums. Pass 2 scores
+    // them in a branch-free loop (two divisions per boundary) that the compiler can vectorise,
+    // keeping the divisions off pass 1's dependency chain.
+    candidates.clear();
+    // Deep nodes touch few bins: scanning only [lo, hi] keeps their cost near O(samples).
+    for b in lo..=hi.min(n_bins - 1) {
+        let row = &mut hist[b * n_classes..(b + 1) * n_classes];
+        // Per-bin totals are summed here rather than counted in the build loop: a second
+        // read-modify-write per sample there serialises on repeated bins in deep nodes.
+        let weight: u64 = row.iter().map(|&h| u64::from(h)).sum();
+        if weight == 0 {
             continue;
         }
         non_empty += 1;
         if let Some(p) = previous {
-            let n_right = n_total - n_left;
-            if n_left >= min_leaf && n_right >= min_leaf {
-                let (mut sum_left, mut sum_right) = (0.0f64, 0.0f64);
-                for (l, t) in left.iter().zip(totals.iter()) {
-                    let (l, r) = (*l as f64, (t - l) as f64);
-                    sum_left += l * l;
-                    sum_right += r * r;
-                }
-                let score = sum_left / n_left as f64 + sum_right / n_right as f64;
-                if best.map_or(true, |(_, s)| score > s) {
-                    best = Some(((p + b - 1) / 2, score));
-                }
+            if n_left >= min_leaf && n_total - n_left >= min_leaf {
+                candidates.push(Candidate {
+                    bin: ((p + b - 1) / 2) as u32,
+                    n_left: (n_left as i64) as f64,
+                    sum_left: (sum_left as i64) as f64,
+                    sum_right: (sum_right as i64) as f64,
+                });
             }
         }
-        let row = &mut hist[b * n_classes..(b + 1) * n_classes];
-        for (l, h) in left.iter_mut().zip(row.iter_mut()) {
-            *l += u64::from(*h);
+        let (mut grow_left, mut shrink_right) = (0u64, 0u64);
+        for ((l, r), h) in left.iter_mut().zip(right.iter_mut()).zip(row.iter_mut()) {
+            let hw = u64::from(*h);
+            grow_left += hw * (2 * *l + hw);
+            shrink_right += hw * (2 * *r - hw);
+            *l += hw;
+            *r -= hw;
             *h = 0;
         }
-        n_left += u64::from(bin_weight[b]);
-        bin_weight[b] = 0;
+        sum_left += grow_left;
+        sum_right -= shrink_right;
+        n_left += weight;
         previous = Some(b);
+    }
+    let n_total = (n_total as i64) as f64;
+    scores.clear();
+    scores.extend(
+        candidates
+            .iter()
+            .map(|c| c.sum_left / c.n_left + c.sum_right / (n_total - c.n_left)),
+    );
+    let mut best: Option<(usize, f64)> = None;
+    for (c, &score) in candidates.iter().zip(scores.iter()) {
+        if best.map_or(true, |(_, s)| score > s) {
+            best = Some((c.bin as usize, score));
+        }
     }
     (non_empty >= 2, best)
 }
@@ -459,7 +614,7 @@ mod tests {
                     weight: w[i],
                 })
                 .collect();
-            let mut scratch = Scratch::new(n_classes, n);
+            let mut scratch = Scratch::new(n_classes, n_features, n);
             for s in &samples {
                 scratch.totals[s.class as usize] += u64::from(s.weight);
             }
@@ -494,10 +649,37 @@ mod tests {
                 scratch.hist.iter().all(|&h| h == 0),
                 "histogram not cleared"
             );
-            assert!(
-                scratch.bin_weight.iter().all(|&h| h == 0),
-                "bin weights not cleared"
-            );
+        }
+    }
+
+    /// The lane-interleaved, fixed-step walk must land on the same leaves as the plain
+    /// early-exit walk (the obvious reference), including NaN rows and a ragged last group.
+    #[test]
+    fn accumulate_matches_row_by_row_walk() {
+        let mut rng = ChaCha8Rng::seed_from_u64(11);
+        let (n, f, c) = (500, 3, 3);
+        let x: Vec<f32> = (0..n * f).map(|_| rng.gen_range(-1.0..1.0)).collect();
+        let y: Vec<u32> = (0..n)
+            .map(|i| (x[i * f] > 0.0) as u32 + (x[i * f + 1] > 0.5) as u32)
+            .collect();
+        let edges = BinEdges::fit(&x, n, f, 32).unwrap();
+        let binned = edges.encode(&x, n);
+        let params = GrowParams {
+            max_depth: 8,
+            min_samples_leaf: 1,
+            max_features: 2,
+            n_classes: c,
+        };
+        let weights: Vec<u32> = (0..n).map(|_| rng.gen_range(0..3)).collect();
+        let (tree, _) = grow(&edges, &binned, &y, &weights, &params, &mut rng);
+        let mut queries: Vec<f32> = (0..37 * f).map(|_| rng.gen_range(-1.5..1.5)).collect();
+        queries[4] = f32::NAN;
+        let mut acc = vec![1.0f32; 37 * c];
+        let rows: Vec<u32> = (0..37).collect();
+        tree.accumulate_rows(&queries, f, &rows, &mut acc, c);
+        for (row, got) in queries.chunks_exact(f).zip(acc.chunks_exact(c)) {
+            let want: Vec<f32> = tree.leaf_probs(row, c).iter().map(|p| p + 1.0).collect();
+            assert_eq!(got, &want[..]);
         }
     }
 

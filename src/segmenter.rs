@@ -11,8 +11,9 @@ use sha2::{Digest, Sha256};
 use crate::dataset::sample::{balanced_sample, uniform_sample};
 use crate::dataset::{ClassTable, Dataset, ImageEntry, LabelMap, UNLABELLED};
 use crate::error::{GroveError, Result};
+use crate::features::bank::filter_bank_names;
 use crate::features::kmeans::KMeansConfig;
-use crate::features::stack::{FeatureConfig, FeatureExtractor};
+use crate::features::stack::{gather_rows, FeatureConfig, FeatureExtractor};
 use crate::features::textons::TextonDictionary;
 use crate::forest::{ForestConfig, RandomForest};
 use crate::imageio::RasterImage;
@@ -130,18 +131,6 @@ fn sha256_hex(path: &std::path::Path) -> Result<String> {
         .collect())
 }
 
-/// Rows of `responses` at `pixels`, pixel-major (the k-means input).
-fn gather(planes: &[Plane], pixels: &[u32]) -> Vec<f32> {
-    let f = planes.len();
-    let mut out = vec![0.0; pixels.len() * f];
-    for (j, p) in planes.iter().enumerate() {
-        for (r, &i) in pixels.iter().enumerate() {
-            out[r * f + j] = p.data[i as usize];
-        }
-    }
-    out
-}
-
 impl TrainConfig {
     pub fn validate(&self) -> Result<()> {
         self.features.validate()?;
@@ -207,12 +196,8 @@ impl TrainConfig {
 
         // Pass 1: filter responses; sample pixels for k-means and for the forest.
         let bar = progress.stage("filtering", pairs.len() as u64);
-        let per_image_bytes = |img: &RasterImage| {
-            img.width
-                * img.height
-                * 4
-                * crate::features::bank::filter_bank_names(channels, &self.features.bank).len()
-        };
+        let n_responses = filter_bank_names(channels, &self.features.bank).len();
+        let per_image_bytes = |img: &RasterImage| img.width * img.height * 4 * n_responses;
         let mut cache_left = self.cache_bytes;
         let mut cached: Vec<Option<Vec<Plane>>> = Vec::with_capacity(pairs.len());
         let mut kmeans_rows: Vec<f32> = Vec::new();
@@ -237,7 +222,7 @@ impl TrainConfig {
                 self.features.texton_samples_per_image,
                 &mut rng,
             );
-            kmeans_rows.extend(gather(&responses, &px));
+            kmeans_rows.extend(gather_rows(&responses, &px));
             let bytes = per_image_bytes(img);
             if bytes <= cache_left {
                 cache_left -= bytes;
@@ -250,10 +235,11 @@ impl TrainConfig {
         bar.finish_and_clear();
 
         if self.features.textons > 0 {
-            let dim = crate::features::bank::filter_bank_names(channels, &self.features.bank).len();
+            let dim = n_responses;
             let km = KMeansConfig {
                 k: self.features.textons,
                 max_iter: self.features.kmeans_iterations,
+                n_init: self.features.kmeans_restarts,
                 seed: self.seed,
                 ..KMeansConfig::default()
             };

@@ -95,6 +95,23 @@ pub fn decode(
                 })
             })
             .collect(),
+        // Many tools save index masks as RGB with R = G = B; read those as values when the
+        // table has no grey colours (so the reading cannot be ambiguous).
+        LabelPixels::Colours(colours) if is_grey_index_mask(colours, table) => {
+            let values = LabelPixels::Values(
+                colours
+                    .iter()
+                    .map(|p| {
+                        if p[3] == 0 {
+                            opts.unlabelled_value
+                        } else {
+                            p[0]
+                        }
+                    })
+                    .collect(),
+            );
+            return decode(&values, width, table, opts);
+        }
         LabelPixels::Colours(colours) => {
             let mut last: Option<([u8; 4], u8)> = None;
             colours
@@ -144,6 +161,11 @@ pub fn decode(
     Ok(out)
 }
 
+fn is_grey_index_mask(colours: &[[u8; 4]], table: &ClassTable) -> bool {
+    let grey = |c: &[u8]| c[0] == c[1] && c[1] == c[2];
+    !table.classes().iter().any(|c| grey(&c.color)) && colours.iter().all(|p| grey(p))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -174,6 +196,21 @@ mod tests {
         assert_eq!(
             decode(&bad, 2, &table(), &lenient).unwrap(),
             vec![0, UNLABELLED, UNLABELLED, 1]
+        );
+    }
+
+    #[test]
+    fn grey_rgb_masks_read_as_values() {
+        let opts = LabelOptions::default();
+        let px = LabelPixels::Colours(vec![
+            [0, 0, 0, 255],
+            [7, 7, 7, 255],
+            [255, 255, 255, 255],
+            [7, 7, 7, 0],
+        ]);
+        assert_eq!(
+            decode(&px, 2, &table(), &opts).unwrap(),
+            vec![0, 1, UNLABELLED, UNLABELLED]
         );
     }
 

@@ -28,6 +28,8 @@ pub struct FeatureConfig {
     pub texton_samples_per_image: usize,
     /// Lloyd iterations for the texton dictionary.
     pub kmeans_iterations: usize,
+    /// k-means restarts (the lowest-inertia run is kept).
+    pub kmeans_restarts: usize,
 }
 
 impl Default for FeatureConfig {
@@ -39,6 +41,7 @@ impl Default for FeatureConfig {
             texton_windows: vec![15],
             texton_samples_per_image: 5000,
             kmeans_iterations: 50,
+            kmeans_restarts: 1,
         }
     }
 }
@@ -87,14 +90,7 @@ impl FeatureStack {
 
     /// Pixel-major rows for the given pixel indices.
     pub fn gather_rows(&self, pixels: &[u32]) -> Vec<f32> {
-        let f = self.planes.len();
-        let mut out = vec![0.0f32; pixels.len() * f];
-        for (j, plane) in self.planes.iter().enumerate() {
-            for (row, &p) in pixels.iter().enumerate() {
-                out[row * f + j] = plane.data[p as usize];
-            }
-        }
-        out
+        gather_rows(&self.planes, pixels)
     }
 
     /// Pixel-major rows for pixels `start..start + out.len() / F`.
@@ -182,6 +178,18 @@ impl FeatureExtractor {
     pub fn n_features(&self) -> usize {
         self.names().len()
     }
+}
+
+/// Pixel-major rows (one value per plane) at the given pixel indices.
+pub fn gather_rows(planes: &[Plane], pixels: &[u32]) -> Vec<f32> {
+    let f = planes.len();
+    let mut out = vec![0.0f32; pixels.len() * f];
+    for (j, plane) in planes.iter().enumerate() {
+        for (row, &p) in pixels.iter().enumerate() {
+            out[row * f + j] = plane.data[p as usize];
+        }
+    }
+    out
 }
 
 /// x / (w - 1) and y / (h - 1), so both run over [0, 1] whatever the image size.

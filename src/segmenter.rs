@@ -278,10 +278,7 @@ impl TrainConfig {
         let spinner = progress.stage("forest", 1);
         let forest = RandomForest::fit(&self.forest, &x, n_features, &y, n_classes)?;
         spinner.finish_and_clear();
-        let created_unix = std::time::SystemTime::now()
-            .duration_since(std::time::UNIX_EPOCH)
-            .map(|d| d.as_secs())
-            .unwrap_or(0);
+        let created_unix = creation_time();
         Ok(Segmenter {
             classes: dataset.classes.clone(),
             provenance: Provenance {
@@ -298,6 +295,20 @@ impl TrainConfig {
             forest,
         })
     }
+}
+
+/// Now, in Unix seconds, unless `SOURCE_DATE_EPOCH` is set (the reproducible-builds
+/// convention), so that a model can be rebuilt byte for byte.
+fn creation_time() -> u64 {
+    std::env::var("SOURCE_DATE_EPOCH")
+        .ok()
+        .and_then(|v| v.trim().parse().ok())
+        .unwrap_or_else(|| {
+            std::time::SystemTime::now()
+                .duration_since(std::time::UNIX_EPOCH)
+                .map(|d| d.as_secs())
+                .unwrap_or(0)
+        })
 }
 
 /// Pixels per block when walking an image through the forest (the measured sweet spot

@@ -27,10 +27,17 @@ pub struct Cli {
 #[derive(Subcommand, Debug)]
 enum Command {
     /// Train a segmenter on a dataset folder (images/, labels/, classes.toml).
+    #[command(
+        after_help = "Example:\n  grove train fields/ --model fields.grove --trees 48 --texton-windows 9,25"
+    )]
     Train(train::TrainArgs),
     /// Segment images with a trained model: label maps, overlays, confidence.
+    #[command(
+        after_help = "Example:\n  grove apply fields.grove flight-07/ extra.tif --out maps/ --confidence"
+    )]
     Apply(apply::ApplyArgs),
     /// Score a model on a labelled dataset: accuracy, IoU per class, confusion matrix.
+    #[command(after_help = "Example:\n  grove eval fields.grove held-out/ --json scores.json")]
     Eval(eval::EvalArgs),
     /// Generate the synthetic farm dataset, train, score and apply, end to end.
     Demo(demo::DemoArgs),

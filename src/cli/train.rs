@@ -49,7 +49,8 @@ pub struct TrainArgs {
     /// Leave out the x/y position features (use when class does not depend on where it is).
     #[arg(long)]
     pub no_position: bool,
-    /// Random seed; the same seed and data give an identical model file.
+    /// Random seed. The same seed and data give the same model on any thread count (the file
+    /// also records its creation time; set SOURCE_DATE_EPOCH to pin that too).
     #[arg(long, default_value_t = 0)]
     pub seed: u64,
     #[command(flatten)]

@@ -323,6 +323,31 @@ mod tests {
     }
 
     #[test]
+    fn tiff_and_jpeg_inputs_are_read() {
+        let dir = tempfile::tempdir().unwrap();
+        let tif = dir.path().join("rgb16.tif");
+        let raw: Vec<u16> = vec![65535, 0, 32768, 0, 65535, 0];
+        image::ImageBuffer::<image::Rgb<u16>, _>::from_raw(2, 1, raw)
+            .unwrap()
+            .save(&tif)
+            .unwrap();
+        let r = read_image(&tif).unwrap();
+        assert_eq!((r.width, r.height, r.channels.len()), (2, 1, 3));
+        assert_eq!(r.channels[0].data, vec![1.0, 0.0]);
+        assert!((r.channels[2].data[0] - 32768.0 / 65535.0).abs() < 1e-6);
+        let jpg = dir.path().join("grey.jpg");
+        image::GrayImage::from_pixel(8, 8, image::Luma([128]))
+            .save(&jpg)
+            .unwrap();
+        let g = read_image(&jpg).unwrap();
+        assert!(g.is_grey());
+        assert!(
+            (g.channels[0].data[0] - 128.0 / 255.0).abs() < 2.0 / 255.0,
+            "JPEG is lossy"
+        );
+    }
+
+    #[test]
     fn corrupt_image_names_the_file() {
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("broken.png");

@@ -28,4 +28,19 @@ impl Progress {
         bar.set_prefix(name.to_string());
         bar
     }
+
+    /// A spinner for a step whose length is unknown (forest training).
+    pub fn spinner(&self, name: &str) -> ProgressBar {
+        if !self.enabled {
+            return ProgressBar::hidden();
+        }
+        let bar = ProgressBar::with_draw_target(None, ProgressDrawTarget::stderr());
+        bar.set_style(
+            ProgressStyle::with_template("{prefix:>12} {spinner} {msg} ({elapsed})")
+                .expect("static template"),
+        );
+        bar.set_prefix(name.to_string());
+        bar.enable_steady_tick(std::time::Duration::from_millis(120));
+        bar
+    }
 }

@@ -275,7 +275,12 @@ impl TrainConfig {
         }
         bar.finish_and_clear();
 
-        let spinner = progress.stage("forest", 1);
+        let spinner = progress.spinner("forest");
+        spinner.set_message(format!(
+            "{} trees on {} pixels",
+            self.forest.n_trees,
+            y.len()
+        ));
         let forest = RandomForest::fit(&self.forest, &x, n_features, &y, n_classes)?;
         spinner.finish_and_clear();
         let created_unix = creation_time();

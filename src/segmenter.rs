@@ -15,7 +15,7 @@ use crate::features::bank::filter_bank_names;
 use crate::features::kmeans::KMeansConfig;
 use crate::features::stack::{gather_rows, FeatureConfig, FeatureExtractor};
 use crate::features::textons::TextonDictionary;
-use crate::forest::{ForestConfig, RandomForest};
+use crate::forest::{argmax, ForestConfig, RandomForest};
 use crate::imageio::RasterImage;
 use crate::plane::Plane;
 use crate::progress::Progress;
@@ -90,15 +90,7 @@ impl Probabilities {
     pub fn argmax(&self) -> Vec<u8> {
         self.data
             .chunks_exact(self.n_classes)
-            .map(|p| {
-                let mut best = 0;
-                for (c, &v) in p.iter().enumerate() {
-                    if v > p[best] {
-                        best = c;
-                    }
-                }
-                best as u8
-            })
+            .map(|p| argmax(p) as u8)
             .collect()
     }
 

@@ -293,8 +293,8 @@ impl RandomForest {
     }
 }
 
-/// Index of the largest value; the first on ties.
-fn argmax(values: &[f32]) -> u32 {
+/// Index of the largest value; the first on ties (so ties go to the lower class).
+pub fn argmax(values: &[f32]) -> u32 {
     let mut best = 0;
     for (i, &v) in values.iter().enumerate() {
         if v > values[best] {

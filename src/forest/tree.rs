@@ -6,8 +6,24 @@
 //! binned rows stay as cache-friendly as they can). Bootstrap duplicates are integer weights,
 //! not copied rows. At each node, features are drawn without replacement until `max_features`
 //! features that are not constant in the node have been scanned: the drawn batch's per-bin
-//! class-count histograms are built in one pass over the node's samples, then every bin
-//! boundary of each is scored.
+//! class-count histograms are built in one pass over the node's samples, then every boundary
+//! between consecutive non-empty bins of each is scored.
+//!
+//! Where training time went (perf, bench data of `benches/forest.rs`: 200k × 40, 5 classes,
+//! 32 trees, 64 bins): 44 % in the boundary scan, 25 % building histograms, 11 % partitioning,
+//! 8 % in the out-of-bag walk. Deep nodes hold a handful of samples spread over most of the bin
+//! range, so the scan mostly tested empty bins, on an unpredictable branch. Now the histogram
+//! build also sets one bit per touched bin in an occupancy bitmap and the scan visits only the
+//! set bits; rows are prefetched a few samples ahead of the histogram build; the partition is
+//! branch-free. Same splits, same model bytes; criterion fit 2.73–2.85 s → 1.89–1.96 s
+//! (alternating runs in one session). Per step: bitmap −22 %, prefetch −4 %, branch-free
+//! partition −4 %.
+//! Tried and dropped: ending a prediction lane group once no lane moved in a step (1.53 s →
+//! 1.75 s for 1M rows: among 16 lanes one nearly always reaches full depth, so the check only
+//! adds work); for nodes of ≤ 16–64 samples, sorting each feature's (code, class,
+//! weight) keys instead of building histograms (no gain: 2.04–2.19 s against 2.04–2.07 s
+//! without — gathering each sample's row once per feature instead of once per node undoes
+//! the saved bin work).
 //!
 //! Why no histogram subtraction (build the smaller child, subtract it from the parent): with a
 //! fresh random feature subset per node, the parent's histograms are for other features, and
@@ -26,6 +42,12 @@ use super::bins::{BinEdges, BinnedMatrix};
 /// Smallest Gini decrease (in weighted samples) that justifies a split: zero-gain splits only
 /// add depth, and this is far above the f64 rounding of the sums (~1e-16 × N).
 const MIN_GAIN: f64 = 1e-7;
+
+/// `u64` words of a per-feature bin-occupancy bitmap.
+const OCCUPANCY_WORDS: usize = super::bins::MAX_BINS / 64;
+
+/// Samples between a row's prefetch and its use when building histograms.
+const PREFETCH_AHEAD: usize = 16;
 
 /// Rows walked together through a tree. Independent walks let the CPU overlap their node
 /// loads instead of waiting for one row's chain of dependent loads at a time.
@@ -181,8 +203,9 @@ struct Scratch {
     /// `hist[(j * MAX_BINS + b) * n_classes + c]`: weight of class `c` in bin `b` of the `j`-th
     /// feature of the current batch; all zero between scans.
     hist: Vec<u32>,
-    /// Lowest and highest bin touched per batch feature.
-    bounds: Vec<(usize, usize)>,
+    /// `occupied[j * OCCUPANCY_WORDS + b / 64]` bit `b % 64`: bin `b` of the `j`-th batch
+    /// feature holds a sample; all zero between scans.
+    occupied: Vec<u64>,
     batch: Vec<usize>,
     left: Vec<u64>,
     right: Vec<u64>,
@@ -197,14 +220,21 @@ impl Scratch {
         let max_bins = super::bins::MAX_BINS;
         Self {
             hist: vec![0; max_features * max_bins * n_classes],
-            bounds: vec![(0, 0); max_features],
+            occupied: vec![0; max_features * OCCUPANCY_WORDS],
             batch: Vec::with_capacity(max_features),
             left: vec![0; n_classes],
             right: vec![0; n_classes],
             candidates: Vec::with_capacity(max_bins),
             scores: Vec::with_capacity(max_bins),
             totals: vec![0; n_classes],
-            right_samples: Vec::with_capacity(capacity),
+            right_samples: vec![
+                Sample {
+                    row: 0,
+                    class: 0,
+                    weight: 0
+                };
+                capacity
+            ],
         }
     }
 }
@@ -264,7 +294,6 @@ pub(crate) fn grow<R: Rng>(
                 rng,
             };
             best_split(
-                edges,
                 binned,
                 draw,
                 params.max_features,
@@ -336,7 +365,6 @@ impl<R: Rng> Iterator for FeatureDraw<'_, R> {
 /// the node); ties keep the first. Requires `scratch.totals` = the node's class weights.
 /// Children must each weigh at least `min_leaf`, and Δ must exceed `MIN_GAIN`.
 fn best_split(
-    edges: &BinEdges,
     binned: &BinnedMatrix,
     features: impl Iterator<Item = usize>,
     max_features: usize,
@@ -365,8 +393,7 @@ fn best_split(
         }
         build_histograms(binned, &batch, samples, scratch);
         for (j, &f) in batch.iter().enumerate() {
-            let (non_constant, candidate) =
-                scan_histogram(j, edges.n_bins(f), n_total, min_leaf, scratch);
+            let (non_constant, candidate) = scan_histogram(j, n_total, min_leaf, scratch);
             if !non_constant {
                 continue;
             }
@@ -388,9 +415,10 @@ fn best_split(
 }
 
 /// Adds every sample's weight to the class histogram of each feature of `batch` (one pass
-/// over the samples). Deep nodes hold rows scattered over the whole matrix, so each sample costs
-/// a cache miss; with rows of codes stored together, that miss is paid once for all the batch's
-/// features instead of once per feature, as a feature-major layout would.
+/// over the samples), and marks the bins it touches in `scratch.occupied`. Deep nodes hold rows
+/// scattered over the whole matrix, so each sample costs a cache miss; with rows of codes stored
+/// together, that miss is paid once for all the batch's features instead of once per feature,
+/// as a feature-major layout would, and rows are prefetched a few samples ahead.
 fn build_histograms(
     binned: &BinnedMatrix,
     batch: &[usize],
@@ -399,38 +427,34 @@ fn build_histograms(
 ) {
     let n_classes = scratch.totals.len();
     let stride = super::bins::MAX_BINS * n_classes;
-    let Scratch { hist, bounds, .. } = scratch;
-    let bounds = &mut bounds[..batch.len()];
-    bounds.fill((usize::MAX, 0));
-    for s in samples {
+    let Scratch { hist, occupied, .. } = scratch;
+    for (k, s) in samples.iter().enumerate() {
+        if let Some(ahead) = samples.get(k + PREFETCH_AHEAD) {
+            binned.prefetch_row(ahead.row as usize);
+        }
         let row = binned.row(s.row as usize);
         let class = s.class as usize;
-        for ((j, &f), (lo, hi)) in batch.iter().enumerate().zip(bounds.iter_mut()) {
+        for (j, &f) in batch.iter().enumerate() {
             let b = row[f] as usize;
             hist[j * stride + b * n_classes + class] += s.weight;
-            *lo = (*lo).min(b);
-            *hi = (*hi).max(b);
+            occupied[j * OCCUPANCY_WORDS + b / 64] |= 1u64 << (b % 64);
         }
     }
 }
 
-/// Scores every boundary between non-empty bins of batch feature `j`'s histogram by
-/// `Σ L_c²/N_L + Σ R_c²/N_R` (larger is better), and clears the histogram. Returns whether the
-/// feature has two or more non-empty bins, and the best admissible `(bin, score)`. Among
-/// equivalent boundaries (empty bins between two non-empty ones) the middle one is chosen, so
-/// the threshold sits mid-gap as with sorted-value trees.
+/// Scores the boundaries of batch feature `j`'s histogram (see [`Sweep`]) and clears the
+/// histogram and its occupancy bits.
 fn scan_histogram(
     j: usize,
-    n_bins: usize,
     n_total: u64,
     min_leaf: u64,
     scratch: &mut Scratch,
 ) -> (bool, Option<(usize, f64)>) {
     let n_classes = scratch.totals.len();
     let stride = super::bins::MAX_BINS * n_classes;
-    let (lo, hi) = scratch.bounds[j];
     let Scratch {
         hist,
+        occupied,
         left,
         right,
         totals,
@@ -439,91 +463,152 @@ fn scan_histogram(
         ..
     } = scratch;
     let hist = &mut hist[j * stride..(j + 1) * stride];
-    // Class weights left/right of the boundary and their sums of squares, updated
-    // incrementally per bin (`(L+h)² − L² = h(2L+h)`, `R² − (R−h)² = h(2R−h)`) in integers:
-    // exact, and short dependency chains. The forest caps N below 2^31, so Σ ≤ N² fits i64,
-    // whose conversion to f64 is one instruction (u64's is not, before AVX-512).
-    for ((l, r), &t) in left.iter_mut().zip(right.iter_mut()).zip(totals.iter()) {
-        *l = 0;
-        *r = t;
-    }
-    let (mut sum_left, mut sum_right) = (0u64, right.iter().map(|r| r * r).sum::<u64>());
-    let mut n_left = 0u64;
-    let mut previous: Option<usize> = None;
-    let mut non_empty = 0usize;
-    // Pass 1 (integers, sequential): the admissible boundaries and their sums. Pass 2 scores
-    // them in a branch-free loop (two divisions per boundary) that the compiler can vectorise,
-    // keeping the divisions off pass 1's dependency chain.
-    candidates.clear();
-    // Deep nodes touch few bins: scanning only [lo, hi] keeps their cost near O(samples).
-    for b in lo..=hi.min(n_bins - 1) {
-        let row = &mut hist[b * n_classes..(b + 1) * n_classes];
-        // Per-bin totals are summed here rather than counted in the build loop: a second
-        // read-modify-write per sample there serialises on repeated bins in deep nodes.
-        let weight: u64 = row.iter().map(|&h| u64::from(h)).sum();
-        if weight == 0 {
-            continue;
+    let occupied = &mut occupied[j * OCCUPANCY_WORDS..(j + 1) * OCCUPANCY_WORDS];
+    let mut sweep = Sweep::new(left, right, totals, n_total, min_leaf, candidates);
+    // Only the occupied bins are visited, in increasing order, found from the bitmap: deep
+    // nodes hold a few samples spread over most of the bin range, and testing every bin of it
+    // for emptiness (an unpredictable branch per bin) was 44 % of the training time.
+    for (w, word) in occupied.iter_mut().enumerate() {
+        let mut bits = std::mem::take(word);
+        while bits != 0 {
+            let b = w * 64 + bits.trailing_zeros() as usize;
+            bits &= bits - 1;
+            sweep.enter_bin(b);
+            sweep.add_bin(&mut hist[b * n_classes..(b + 1) * n_classes]);
         }
-        non_empty += 1;
-        if let Some(p) = previous {
-            if n_left >= min_leaf && n_total - n_left >= min_leaf {
-                candidates.push(Candidate {
+    }
+    sweep.finish(n_total, scores)
+}
+
+/// A left-to-right sweep over the non-empty bins of one feature that scores every boundary
+/// between consecutive ones by `Σ L_c²/N_L + Σ R_c²/N_R` (larger is better). Among equivalent
+/// boundaries (empty bins between two non-empty ones) the middle one is chosen, so the
+/// threshold sits mid-gap as with sorted-value trees.
+///
+/// Class weights left/right of the boundary and their sums of squares are updated
+/// incrementally (`(L+h)² − L² = h(2L+h)`, `R² − (R−h)² = h(2R−h)`) in integers: exact, and short dependency chains. The forest
+/// caps N below 2^31, so Σ ≤ N² fits i64, whose conversion to f64 is one instruction (u64's is
+/// not, before AVX-512). Pass 1 (integers, sequential) records the admissible boundaries; pass 2
+/// (`finish`) scores them in a branch-free loop (two divisions per boundary) that the compiler
+/// can vectorise, keeping the divisions off pass 1's dependency chain.
+struct Sweep<'a> {
+    left: &'a mut [u64],
+    right: &'a mut [u64],
+    sum_left: u64,
+    sum_right: u64,
+    n_left: u64,
+    n_total: u64,
+    min_leaf: u64,
+    previous: Option<usize>,
+    non_empty: usize,
+    candidates: &'a mut Vec<Candidate>,
+}
+
+impl<'a> Sweep<'a> {
+    fn new(
+        left: &'a mut [u64],
+        right: &'a mut [u64],
+        totals: &[u64],
+        n_total: u64,
+        min_leaf: u64,
+        candidates: &'a mut Vec<Candidate>,
+    ) -> Self {
+        left.fill(0);
+        right.copy_from_slice(totals);
+        candidates.clear();
+        Self {
+            sum_right: right.iter().map(|r| r * r).sum(),
+            left,
+            right,
+            sum_left: 0,
+            n_left: 0,
+            n_total,
+            min_leaf,
+            previous: None,
+            non_empty: 0,
+            candidates,
+        }
+    }
+
+    /// Starts non-empty bin `b` (bins arrive in increasing order): records the boundary
+    /// between the previous non-empty bin and `b` if both sides weigh at least `min_leaf`.
+    #[inline]
+    fn enter_bin(&mut self, b: usize) {
+        self.non_empty += 1;
+        if let Some(p) = self.previous {
+            if self.n_left >= self.min_leaf && self.n_total - self.n_left >= self.min_leaf {
+                self.candidates.push(Candidate {
                     bin: ((p + b - 1) / 2) as u32,
-                    n_left: (n_left as i64) as f64,
-                    sum_left: (sum_left as i64) as f64,
-                    sum_right: (sum_right as i64) as f64,
+                    n_left: (self.n_left as i64) as f64,
+                    sum_left: (self.sum_left as i64) as f64,
+                    sum_right: (self.sum_right as i64) as f64,
                 });
             }
         }
-        let (mut grow_left, mut shrink_right) = (0u64, 0u64);
-        for ((l, r), h) in left.iter_mut().zip(right.iter_mut()).zip(row.iter_mut()) {
-            let hw = u64::from(*h);
+        self.previous = Some(b);
+    }
+
+    /// Moves a whole histogram row (class weights of the current bin) to the left side and
+    /// zeroes it.
+    #[inline]
+    fn add_bin(&mut self, row: &mut [u32]) {
+        let (mut grow_left, mut shrink_right, mut weight) = (0u64, 0u64, 0u64);
+        for ((l, r), h) in self.left.iter_mut().zip(self.right.iter_mut()).zip(row) {
+            let hw = u64::from(std::mem::take(h));
             grow_left += hw * (2 * *l + hw);
             shrink_right += hw * (2 * *r - hw);
             *l += hw;
             *r -= hw;
-            *h = 0;
+            weight += hw;
         }
-        sum_left += grow_left;
-        sum_right -= shrink_right;
-        n_left += weight;
-        previous = Some(b);
+        self.sum_left += grow_left;
+        self.sum_right -= shrink_right;
+        self.n_left += weight;
     }
-    let n_total = (n_total as i64) as f64;
-    scores.clear();
-    scores.extend(
-        candidates
-            .iter()
-            .map(|c| c.sum_left / c.n_left + c.sum_right / (n_total - c.n_left)),
-    );
-    let mut best: Option<(usize, f64)> = None;
-    for (c, &score) in candidates.iter().zip(scores.iter()) {
-        if best.map_or(true, |(_, s)| score > s) {
-            best = Some((c.bin as usize, score));
+
+    /// Whether the feature has two or more non-empty bins, and the best admissible
+    /// `(bin, score)` (the first on ties).
+    fn finish(self, n_total: u64, scores: &mut Vec<f64>) -> (bool, Option<(usize, f64)>) {
+        let n_total = (n_total as i64) as f64;
+        scores.clear();
+        scores.extend(
+            self.candidates
+                .iter()
+                .map(|c| c.sum_left / c.n_left + c.sum_right / (n_total - c.n_left)),
+        );
+        let mut best: Option<(usize, f64)> = None;
+        for (c, &score) in self.candidates.iter().zip(scores.iter()) {
+            if best.map_or(true, |(_, s)| score > s) {
+                best = Some((c.bin as usize, score));
+            }
         }
+        (self.non_empty >= 2, best)
     }
-    (non_empty >= 2, best)
 }
 
 /// Moves the samples satisfying `goes_left` to the front, keeping the order on both sides;
-/// returns how many went left.
+/// returns how many went left. `right` is scratch space of at least `samples.len()`.
+///
+/// Branch-free: every sample is written to both sides and only the matching cursor advances.
+/// Which side a sample goes to is a coin flip near the top of the tree, and the branchy
+/// version's mispredictions made it 13 % of training time (8 % branch-free).
 fn stable_partition(
     samples: &mut [Sample],
     goes_left: impl Fn(&Sample) -> bool,
-    right: &mut Vec<Sample>,
+    right: &mut [Sample],
 ) -> usize {
-    right.clear();
-    let mut n_left = 0;
+    let right = &mut right[..samples.len()];
+    let (mut n_left, mut n_right) = (0, 0);
     for k in 0..samples.len() {
         let s = samples[k];
-        if goes_left(&s) {
-            samples[n_left] = s;
-            n_left += 1;
-        } else {
-            right.push(s);
-        }
+        let left = goes_left(&s);
+        // n_left ≤ k: this overwrites a sample already read.
+        samples[n_left] = s;
+        right[n_right] = s;
+        n_left += usize::from(left);
+        n_right += usize::from(!left);
     }
-    samples[n_left..].copy_from_slice(right);
+    samples[n_left..].copy_from_slice(&right[..n_right]);
     n_left
 }
 
@@ -592,10 +677,13 @@ mod tests {
     fn histogram_split_matches_brute_force() {
         let mut rng = ChaCha8Rng::seed_from_u64(7);
         for case in 0..300 {
-            let n = rng.gen_range(2..60);
+            // Every third case spreads up to 200 samples over up to 250 bins, so codes fill
+            // all four words of the occupancy bitmap.
+            let wide = case % 3 == 0;
+            let n = rng.gen_range(2..if wide { 200 } else { 60 });
             let n_features = rng.gen_range(1..5);
             let n_classes = rng.gen_range(2..5);
-            let levels = rng.gen_range(1..12);
+            let levels = rng.gen_range(1..if wide { 250 } else { 12 });
             let x: Vec<f32> = (0..n * n_features)
                 .map(|_| rng.gen_range(0..levels) as f32 * 0.5 - 1.0)
                 .collect();
@@ -604,7 +692,7 @@ mod tests {
             let min_leaf = rng.gen_range(1..4);
             let expected = brute_force_best_gain(&x, n_features, &y, &w, n_classes, min_leaf);
 
-            let edges = BinEdges::fit(&x, n, n_features, 16).unwrap();
+            let edges = BinEdges::fit(&x, n, n_features, if wide { 256 } else { 16 }).unwrap();
             let binned = edges.encode(&x, n);
             let samples: Vec<Sample> = (0..n)
                 .filter(|&i| w[i] > 0)
@@ -619,7 +707,6 @@ mod tests {
                 scratch.totals[s.class as usize] += u64::from(s.weight);
             }
             let found = best_split(
-                &edges,
                 &binned,
                 0..n_features,
                 n_features,
@@ -646,8 +733,8 @@ mod tests {
                 other => panic!("case {case}: brute force vs histogram {other:?}"),
             }
             assert!(
-                scratch.hist.iter().all(|&h| h == 0),
-                "histogram not cleared"
+                scratch.hist.iter().all(|&h| h == 0) && scratch.occupied.iter().all(|&w| w == 0),
+                "histogram or occupancy not cleared"
             );
         }
     }

@@ -152,3 +152,59 @@ fn model_bytes_do_not_depend_on_thread_count() {
         "model bytes differ between 1 and 2 threads"
     );
 }
+
+/// Scribbles: colour-coded RGBA label files where only a few short strokes per class are
+/// painted (transparent elsewhere) still train a usable model, and unlabelled pixels are
+/// neither trained nor scored on.
+#[test]
+fn scribbled_colour_labels_train_a_usable_model() {
+    let t = tempfile::tempdir().unwrap();
+    let full = t.path().join("full");
+    grove::demo::write_demo_dataset(&full, 0..4, 160, 5).unwrap();
+    let ds_full = grove::dataset::Dataset::open(&full, Default::default()).unwrap();
+    let scribbled = t.path().join("scribbled");
+    std::fs::create_dir_all(scribbled.join("labels")).unwrap();
+    std::fs::create_dir_all(scribbled.join("images")).unwrap();
+    std::fs::copy(full.join("classes.toml"), scribbled.join("classes.toml")).unwrap();
+    let colours: Vec<[u8; 3]> = ds_full.classes.classes().iter().map(|c| c.color).collect();
+    let mut painted = 0usize;
+    for e in ds_full.entries.iter().take(3) {
+        std::fs::copy(
+            &e.image,
+            scribbled.join("images").join(e.image.file_name().unwrap()),
+        )
+        .unwrap();
+        let truth = ds_full.read_labels(e.labels.as_ref().unwrap()).unwrap();
+        // Keep every 9th row, and on it only pixels whose 5x5 neighbourhood (on that row) is
+        // one class: short horizontal strokes inside regions, under 10 % of the image.
+        let mut rgba = image::RgbaImage::new(160, 160);
+        for y in (4..156).step_by(9) {
+            for x in 2..158 {
+                let c = truth.indices[y * 160 + x];
+                if (x - 2..=x + 2).all(|xx| truth.indices[y * 160 + xx] == c) {
+                    let [r, g, b] = colours[c as usize];
+                    rgba.put_pixel(x as u32, y as u32, image::Rgba([r, g, b, 255]));
+                    painted += 1;
+                }
+            }
+        }
+        rgba.save(scribbled.join("labels").join(format!("{}.png", e.stem)))
+            .unwrap();
+    }
+    assert!(painted < 3 * 160 * 160 / 10, "scribbles must be sparse");
+    let ds = grove::dataset::Dataset::open(&scribbled, Default::default()).unwrap();
+    let mut cfg = grove::segmenter::TrainConfig::default();
+    cfg.forest.n_trees = 16;
+    let model = cfg.fit(&ds, &ds.labelled(), Default::default()).unwrap();
+    let labelled: u64 = model.provenance.labelled_per_class.iter().sum();
+    assert_eq!(
+        labelled as usize, painted,
+        "only painted pixels count as labelled"
+    );
+    let held_out: Vec<_> = ds_full.entries.iter().skip(3).collect();
+    let cm = grove::eval::score::evaluate(&model, &ds_full, &held_out, Default::default()).unwrap();
+    let acc = cm.pixel_accuracy().unwrap();
+    eprintln!("scribbles: {painted} labelled pixels, held-out pixel accuracy {acc:.3}");
+    // A floor, not a target: scribbles on 3 small scenes should still get most pixels right.
+    assert!(acc >= 0.8, "pixel accuracy from scribbles {acc:.3}");
+}

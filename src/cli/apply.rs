@@ -93,8 +93,23 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
     let t0 = Instant::now();
     let bar = progress.stage("applying", images.len() as u64);
     let mut pixels = 0usize;
+    let mut warned = false;
     for path in &images {
         let img = read_image(path)?;
+        if !warned && img.is_grey() != (model.features.channels == 1) {
+            warned = true;
+            let (model_kind, image_kind) = if img.is_grey() {
+                ("colour", "grey")
+            } else {
+                ("grey", "colour")
+            };
+            bar.suspend(|| {
+                eprintln!(
+                    "warning: {}: {image_kind} image, but the model was trained on {model_kind} images; results may be poor (train on images like the ones you apply to)",
+                    path.display()
+                )
+            });
+        }
         let probs = model.predict_proba(&img);
         write_outputs(
             &args.out,
@@ -110,8 +125,9 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
     bar.finish_and_clear();
     let secs = t0.elapsed().as_secs_f64();
     println!(
-        "segmented {} images ({:.1} Mpx) in {secs:.1} s; label maps in {}",
+        "segmented {} image{} ({:.2} Mpx) in {secs:.1} s; label maps in {}",
         images.len(),
+        if images.len() == 1 { "" } else { "s" },
         pixels as f64 / 1e6,
         args.out.join("labels").display()
     );

@@ -16,6 +16,8 @@ pub const MAGIC: &[u8; 8] = b"GROVE\x00MD";
 /// Bump when the serialised layout of `Segmenter` changes.
 pub const FORMAT_VERSION: u32 = 1;
 const HEADER: usize = 8 + 4 + 8;
+/// Far above any real model (a 32-tree forest on 200k samples is tens of megabytes).
+const MAX_DECODED_BYTES: usize = 1 << 32;
 
 /// FNV-1a, 64-bit (Fowler–Noll–Vo): a fast hash that is plenty to detect damage.
 fn fnv1a(bytes: &[u8]) -> u64 {
@@ -77,9 +79,11 @@ pub fn from_bytes(bytes: &[u8]) -> std::result::Result<Segmenter, String> {
     if stored != fnv1a(payload) {
         return Err("model file is damaged (checksum mismatch)".into());
     }
-    let (model, _): (Segmenter, usize) =
-        bincode::serde::decode_from_slice(payload, bincode::config::standard())
-            .map_err(|e| format!("model payload cannot be read: {e}"))?;
+    // The limit caps what length prefixes inside the payload may claim, so a crafted file
+    // cannot make the decoder try to allocate more than a model could ever need.
+    let config = bincode::config::standard().with_limit::<MAX_DECODED_BYTES>();
+    let (model, _): (Segmenter, usize) = bincode::serde::decode_from_slice(payload, config)
+        .map_err(|e| format!("model payload cannot be read: {e}"))?;
     model
         .check()
         .map_err(|e| format!("model is inconsistent ({e}); retrain it with this grove"))?;

@@ -311,6 +311,26 @@ mod tests {
     }
 
     #[test]
+    fn packed_low_bit_depth_labels_are_unpacked() {
+        // 2-bit grey, 5 pixels wide: values 0,1,2,3,1 packed MSB first (PNG spec, section 7.2).
+        let mut bytes = Vec::new();
+        {
+            let mut enc = png::Encoder::new(&mut bytes, 5, 1);
+            enc.set_color(png::ColorType::Grayscale);
+            enc.set_depth(png::BitDepth::Two);
+            let mut w = enc.write_header().unwrap();
+            w.write_image_data(&[0b0001_1011, 0b0100_0000]).unwrap();
+        }
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("l2.png");
+        std::fs::write(&path, bytes).unwrap();
+        match read_label_png(&path).unwrap().pixels {
+            LabelPixels::Values(v) => assert_eq!(v, vec![0, 1, 2, 3, 1]),
+            LabelPixels::Colours(_) => panic!("grey PNG must read as values"),
+        }
+    }
+
+    #[test]
     fn sixteen_bit_grey_is_scaled_to_unit_range() {
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("g16.png");

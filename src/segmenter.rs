@@ -27,6 +27,8 @@ pub struct TrainConfig {
     pub forest: ForestConfig,
     /// Labelled pixels drawn per training image, split equally among its classes.
     pub samples_per_image: usize,
+    /// Drives pixel sampling, k-means and the forest (it replaces `forest.seed`), so one
+    /// number reproduces a model.
     pub seed: u64,
     /// Keep filter responses of training images in memory between the two passes when
     /// they fit in this many bytes; otherwise recompute them (slower, bounded memory).
@@ -273,7 +275,11 @@ impl TrainConfig {
             self.forest.n_trees,
             y.len()
         ));
-        let forest = RandomForest::fit(&self.forest, &x, n_features, &y, n_classes)?;
+        let forest_config = ForestConfig {
+            seed: self.seed,
+            ..self.forest.clone()
+        };
+        let forest = RandomForest::fit(&forest_config, &x, n_features, &y, n_classes)?;
         spinner.finish_and_clear();
         let created_unix = creation_time();
         Ok(Segmenter {

@@ -67,7 +67,6 @@ impl TrainArgs {
         cfg.forest.n_trees = self.trees;
         cfg.forest.max_depth = self.max_depth;
         cfg.forest.min_samples_leaf = self.min_leaf;
-        cfg.forest.seed = self.seed;
         cfg.features.textons = self.textons;
         cfg.features.texton_windows = self.texton_windows.clone();
         cfg.features.bank.scales = self.scales.clone();

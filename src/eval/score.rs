@@ -113,7 +113,29 @@ impl MetricsReport {
             }
             s += "\n";
         }
+        if let Some((t, p, n)) = self.worst_confusion() {
+            s += &format!(
+                "\nmost frequent error: {} taken for {} ({n} px, {:.1} % of {} pixels); more labels where they meet help most\n",
+                self.classes[t],
+                self.classes[p],
+                100.0 * n as f64 / self.confusion[t].iter().sum::<u64>() as f64,
+                self.classes[t]
+            );
+        }
         s
+    }
+
+    /// The largest off-diagonal cell: (truth, prediction, count), if there is any error.
+    pub fn worst_confusion(&self) -> Option<(usize, usize, u64)> {
+        let mut worst = None;
+        for (t, row) in self.confusion.iter().enumerate() {
+            for (p, &n) in row.iter().enumerate() {
+                if t != p && n > 0 && worst.is_none_or(|(_, _, m)| n > m) {
+                    worst = Some((t, p, n));
+                }
+            }
+        }
+        worst
     }
 }
 

@@ -127,15 +127,14 @@ impl MetricsReport {
 
     /// The largest off-diagonal cell: (truth, prediction, count), if there is any error.
     pub fn worst_confusion(&self) -> Option<(usize, usize, u64)> {
-        let mut worst = None;
-        for (t, row) in self.confusion.iter().enumerate() {
-            for (p, &n) in row.iter().enumerate() {
-                if t != p && n > 0 && worst.is_none_or(|(_, _, m)| n > m) {
-                    worst = Some((t, p, n));
-                }
-            }
-        }
-        worst
+        let cells = self
+            .confusion
+            .iter()
+            .enumerate()
+            .flat_map(|(t, row)| row.iter().enumerate().map(move |(p, &n)| (t, p, n)));
+        // Ties go to the first cell in row order (max_by_key keeps the last, hence `rev`).
+        let cells: Vec<_> = cells.filter(|&(t, p, n)| t != p && n > 0).collect();
+        cells.into_iter().rev().max_by_key(|&(_, _, n)| n)
     }
 }
 

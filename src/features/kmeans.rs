@@ -121,7 +121,7 @@ impl KMeans {
                 "k-means: dimension must be at least 1".into(),
             ));
         }
-        if data.len() % dim != 0 {
+        if !data.len().is_multiple_of(dim) {
             return Err(GroveError::Data(format!(
                 "k-means: {} values is not a whole number of rows of {dim}",
                 data.len()
@@ -321,7 +321,7 @@ fn kmeans_plus_plus(data: &[f32], dim: usize, k: usize, rng: &mut ChaCha8Rng) ->
                     }
                 });
             let pot = ordered_sum(&candidate_closest);
-            if best.map_or(true, |(_, p)| pot < p) {
+            if best.is_none_or(|(_, p)| pot < p) {
                 best = Some((cand, pot));
                 std::mem::swap(&mut best_closest, &mut candidate_closest);
             }

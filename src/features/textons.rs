@@ -40,7 +40,7 @@ impl TextonDictionary {
     /// Errors: as [`KMeans::fit`] (bad settings, ragged or non-finite data, fewer samples than k).
     pub fn fit(samples: &[f32], dim: usize, cfg: &KMeansConfig) -> Result<TextonDictionary> {
         cfg.validate()?;
-        if dim == 0 || samples.len() % dim != 0 || samples.is_empty() {
+        if dim == 0 || !samples.len().is_multiple_of(dim) || samples.is_empty() {
             return Err(GroveError::Data(format!(
                 "textons: {} filter responses do not form rows of {dim}",
                 samples.len()
@@ -214,7 +214,7 @@ pub fn texton_histograms(
     window: usize,
 ) -> Result<Vec<Plane>> {
     assert_eq!(map.len(), width * height, "texton map size");
-    if window == 0 || window % 2 == 0 || window > MAX_WINDOW {
+    if window == 0 || window.is_multiple_of(2) || window > MAX_WINDOW {
         return Err(GroveError::Config(format!(
             "texton histogram window = {window} must be an odd number between 1 and {MAX_WINDOW}"
         )));

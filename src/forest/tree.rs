@@ -400,7 +400,7 @@ fn best_split(
             scanned += 1;
             if let Some((bin, proxy)) = candidate {
                 let gain = proxy - parent_term;
-                if gain > MIN_GAIN && best.map_or(true, |b| gain > b.gain) {
+                if gain > MIN_GAIN && best.is_none_or(|b| gain > b.gain) {
                     best = Some(Split {
                         feature: f,
                         bin,
@@ -578,7 +578,7 @@ impl<'a> Sweep<'a> {
         );
         let mut best: Option<(usize, f64)> = None;
         for (c, &score) in self.candidates.iter().zip(scores.iter()) {
-            if best.map_or(true, |(_, s)| score > s) {
+            if best.is_none_or(|(_, s)| score > s) {
                 best = Some((c.bin as usize, score));
             }
         }
@@ -662,7 +662,7 @@ mod tests {
                     continue;
                 }
                 let gain = parent - gl - gr;
-                if gain > MIN_GAIN && best.map_or(true, |b| gain > b) {
+                if gain > MIN_GAIN && best.is_none_or(|b| gain > b) {
                     best = Some(gain);
                 }
             }

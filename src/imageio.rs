@@ -73,6 +73,38 @@ fn decode(path: &Path) -> Result<DynamicImage> {
         .map_err(|e| GroveError::input(path, format!("cannot decode image: {e}")))
 }
 
+/// What an image file's header says, read without decoding the pixels.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct ImageHeader {
+    pub width: usize,
+    pub height: usize,
+    /// One channel (with or without alpha); [`read_image`] gives one plane for these.
+    pub grey: bool,
+}
+
+/// Reads only the header of an image file (cheap: lets training check sizes and decide the
+/// colour mode before any pixel is decoded).
+pub fn probe_image(path: &Path) -> Result<ImageHeader> {
+    use image::ImageDecoder;
+    let file = std::fs::File::open(path).map_err(|e| GroveError::io(path, e))?;
+    let decoder = image::ImageReader::new(BufReader::new(file))
+        .with_guessed_format()
+        .map_err(|e| GroveError::io(path, e))?
+        .into_decoder()
+        .map_err(|e| GroveError::input(path, format!("cannot decode image: {e}")))?;
+    let (w, h) = decoder.dimensions();
+    Ok(ImageHeader {
+        width: w as usize,
+        height: h as usize,
+        grey: is_grey_colour(decoder.color_type()),
+    })
+}
+
+fn is_grey_colour(c: image::ColorType) -> bool {
+    use image::ColorType as C;
+    matches!(c, C::L8 | C::La8 | C::L16 | C::La16)
+}
+
 /// Reads an image file into sRGB planes in [0, 1].
 pub fn read_image(path: &Path) -> Result<RasterImage> {
     use image::ColorType as C;
@@ -81,7 +113,7 @@ pub fn read_image(path: &Path) -> Result<RasterImage> {
     if w == 0 || h == 0 {
         return Err(GroveError::input(path, "image has no pixels"));
     }
-    let grey = matches!(img.color(), C::L8 | C::La8 | C::L16 | C::La16);
+    let grey = is_grey_colour(img.color());
     let n_ch = if grey { 1 } else { 3 };
     let mut planes = vec![Plane::filled(w, h, 0.0); n_ch];
     let wide = matches!(

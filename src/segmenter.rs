@@ -9,14 +9,14 @@ use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 
 use crate::dataset::sample::{balanced_sample, uniform_sample};
-use crate::dataset::{ClassTable, Dataset, ImageEntry, LabelMap, UNLABELLED};
+use crate::dataset::{ClassTable, Dataset, ImageEntry, UNLABELLED};
 use crate::error::{GroveError, Result};
 use crate::features::bank::filter_bank_names;
 use crate::features::kmeans::KMeansConfig;
 use crate::features::stack::{gather_rows, FeatureConfig, FeatureExtractor};
 use crate::features::textons::TextonDictionary;
 use crate::forest::{argmax, ForestConfig, RandomForest};
-use crate::imageio::RasterImage;
+use crate::imageio::{read_image, RasterImage};
 use crate::plane::Plane;
 use crate::progress::Progress;
 
@@ -152,12 +152,21 @@ impl TrainConfig {
             )));
         }
         let n_classes = dataset.classes.len();
-        let bar = progress.stage("reading", entries.len() as u64);
-        let mut pairs: Vec<(RasterImage, LabelMap)> = Vec::with_capacity(entries.len());
+        let n_images = entries.len();
+
+        // Pass 0, cheap (labels and image headers only), so a bad dataset fails before any
+        // filtering: sizes, label values, class counts, colour mode, the forest's pixel sample.
+        let bar = progress.stage("checking", n_images as u64);
         let mut labelled = vec![0u64; n_classes];
-        let mut training_images = Vec::with_capacity(entries.len());
-        for e in entries {
-            let (img, lab) = dataset.load_pair(e)?;
+        let mut sampled = vec![0u64; n_classes];
+        let mut training_images = Vec::with_capacity(n_images);
+        let mut rngs = Vec::with_capacity(n_images);
+        let mut forest_pixels: Vec<Vec<u32>> = Vec::with_capacity(n_images);
+        let mut y: Vec<u32> = Vec::new();
+        let mut any_colour = false;
+        for (i, e) in entries.iter().enumerate() {
+            let (header, lab) = dataset.load_labels_checked(e)?;
+            any_colour |= !header.grey;
             let counts = lab.class_counts(n_classes);
             labelled.iter_mut().zip(&counts).for_each(|(a, b)| *a += b);
             training_images.push(TrainingImage {
@@ -170,66 +179,56 @@ impl TrainConfig {
                 image_sha256: sha256_hex(&e.image)?,
                 labelled_pixels: counts.iter().sum(),
             });
-            pairs.push((img, lab));
+            // One random stream per image: the samples do not depend on the order of work.
+            let mut rng = ChaCha8Rng::seed_from_u64(self.seed);
+            rng.set_stream(i as u64);
+            let pixels = balanced_sample(&lab, n_classes, self.samples_per_image, &mut rng);
+            for &p in &pixels {
+                let c = lab.indices[p as usize];
+                debug_assert_ne!(c, UNLABELLED);
+                sampled[c as usize] += 1;
+                y.push(c as u32);
+            }
+            forest_pixels.push(pixels);
+            rngs.push(rng);
             bar.inc(1);
         }
         bar.finish_and_clear();
         for w in dataset.check_counts(&labelled)? {
             eprintln!("warning: {w}");
         }
-        let channels = if pairs.iter().any(|(img, _)| !img.is_grey()) {
-            3
-        } else {
-            1
-        };
+        let channels = if any_colour { 3 } else { 1 };
         let mut extractor = FeatureExtractor {
             config: self.features.clone(),
             channels,
             textons: None,
         };
-
-        // Pass 1: filter responses; sample pixels for k-means and for the forest.
-        let bar = progress.stage("filtering", pairs.len() as u64);
         let n_responses = filter_bank_names(channels, &self.features.bank).len();
-        let per_image_bytes = |img: &RasterImage| img.width * img.height * 4 * n_responses;
-        let mut cache_left = self.cache_bytes;
-        let mut cached: Vec<Option<Vec<Plane>>> = Vec::with_capacity(pairs.len());
-        let mut kmeans_rows: Vec<f32> = Vec::new();
-        let mut forest_pixels: Vec<Vec<u32>> = Vec::with_capacity(pairs.len());
-        for (i, (img, lab)) in pairs.iter().enumerate() {
-            let mut rng = ChaCha8Rng::seed_from_u64(self.seed);
-            rng.set_stream(i as u64);
-            forest_pixels.push(balanced_sample(
-                lab,
-                n_classes,
-                self.samples_per_image,
-                &mut rng,
-            ));
-            if self.features.textons == 0 {
-                cached.push(None);
-                bar.inc(1);
-                continue;
-            }
-            let responses = extractor.responses(img);
-            let px = uniform_sample(
-                img.width * img.height,
-                self.features.texton_samples_per_image,
-                &mut rng,
-            );
-            kmeans_rows.extend(gather_rows(&responses, &px));
-            let bytes = per_image_bytes(img);
-            if bytes <= cache_left {
-                cache_left -= bytes;
-                cached.push(Some(responses));
-            } else {
-                cached.push(None);
-            }
-            bar.inc(1);
-        }
-        bar.finish_and_clear();
 
+        // Pass 1 (with textons): filter responses; pixels for k-means. Responses are kept for
+        // pass 2 while they fit in `cache_bytes`; images are never all held at once.
+        let mut cached: Vec<Option<Vec<Plane>>> = (0..n_images).map(|_| None).collect();
         if self.features.textons > 0 {
-            let dim = n_responses;
+            let bar = progress.stage("filtering", n_images as u64);
+            let mut cache_left = self.cache_bytes;
+            let mut kmeans_rows: Vec<f32> = Vec::new();
+            for (i, e) in entries.iter().enumerate() {
+                let img = read_image(&e.image)?;
+                let responses = extractor.responses(&img);
+                let px = uniform_sample(
+                    img.width * img.height,
+                    self.features.texton_samples_per_image,
+                    &mut rngs[i],
+                );
+                kmeans_rows.extend(gather_rows(&responses, &px));
+                let bytes = img.width * img.height * 4 * n_responses;
+                if bytes <= cache_left {
+                    cache_left -= bytes;
+                    cached[i] = Some(responses);
+                }
+                bar.inc(1);
+            }
+            bar.finish_and_clear();
             let km = KMeansConfig {
                 k: self.features.textons,
                 max_iter: self.features.kmeans_iterations,
@@ -237,34 +236,26 @@ impl TrainConfig {
                 seed: self.seed,
                 ..KMeansConfig::default()
             };
-            let n_rows = kmeans_rows.len() / dim;
+            let n_rows = kmeans_rows.len() / n_responses;
             if n_rows < self.features.textons {
                 return Err(GroveError::Data(format!(
                     "only {n_rows} pixels to build {} textons; use fewer textons or more images",
                     self.features.textons
                 )));
             }
-            extractor.textons = Some(TextonDictionary::fit(&kmeans_rows, dim, &km)?);
+            extractor.textons = Some(TextonDictionary::fit(&kmeans_rows, n_responses, &km)?);
         }
-        drop(kmeans_rows);
 
         // Pass 2: full feature stacks, rows at the sampled pixels.
-        let bar = progress.stage("features", pairs.len() as u64);
+        let bar = progress.stage("features", n_images as u64);
         let n_features = extractor.n_features();
-        let total: usize = forest_pixels.iter().map(Vec::len).sum();
-        let mut x: Vec<f32> = Vec::with_capacity(total * n_features);
-        let mut y: Vec<u32> = Vec::with_capacity(total);
-        let mut sampled = vec![0u64; n_classes];
-        for (((img, lab), pixels), cache) in pairs.iter().zip(&forest_pixels).zip(cached) {
-            let responses = cache.unwrap_or_else(|| extractor.responses(img));
-            let stack = extractor.stack(responses);
-            x.extend(stack.gather_rows(pixels));
-            for &p in pixels {
-                let c = lab.indices[p as usize];
-                debug_assert_ne!(c, UNLABELLED);
-                sampled[c as usize] += 1;
-                y.push(c as u32);
-            }
+        let mut x: Vec<f32> = Vec::with_capacity(y.len() * n_features);
+        for ((e, pixels), cache) in entries.iter().zip(&forest_pixels).zip(cached) {
+            let responses = match cache {
+                Some(r) => r,
+                None => extractor.responses(&read_image(&e.image)?),
+            };
+            x.extend(extractor.stack(responses).gather_rows(pixels));
             bar.inc(1);
         }
         bar.finish_and_clear();

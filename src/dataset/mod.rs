@@ -11,7 +11,7 @@ pub use classes::{ClassInfo, ClassTable};
 pub use labels::{LabelMap, LabelOptions, UNLABELLED};
 
 use crate::error::{GroveError, Result};
-use crate::imageio::{has_image_extension, read_image, RasterImage};
+use crate::imageio::{has_image_extension, probe_image, read_image, ImageHeader, RasterImage};
 
 /// One image of a dataset and its label file, if any.
 #[derive(Clone, Debug)]
@@ -51,6 +51,28 @@ pub fn stem_of(path: &Path) -> String {
     path.file_stem()
         .map(|s| s.to_string_lossy().into_owned())
         .unwrap_or_default()
+}
+
+fn check_sizes(
+    entry: &ImageEntry,
+    label_path: &Path,
+    labels: &LabelMap,
+    image: (usize, usize),
+) -> Result<()> {
+    if (labels.width, labels.height) == image {
+        return Ok(());
+    }
+    Err(GroveError::input(
+        label_path,
+        format!(
+            "label size {}x{} differs from image size {}x{} ({})",
+            labels.width,
+            labels.height,
+            image.0,
+            image.1,
+            entry.image.display()
+        ),
+    ))
 }
 
 impl Dataset {
@@ -131,20 +153,21 @@ impl Dataset {
             .ok_or_else(|| GroveError::input(&entry.image, "image has no label file"))?;
         let image = read_image(&entry.image)?;
         let labels = self.read_labels(label_path)?;
-        if (labels.width, labels.height) != (image.width, image.height) {
-            return Err(GroveError::input(
-                label_path,
-                format!(
-                    "label size {}x{} differs from image size {}x{} ({})",
-                    labels.width,
-                    labels.height,
-                    image.width,
-                    image.height,
-                    entry.image.display()
-                ),
-            ));
-        }
+        check_sizes(entry, label_path, &labels, (image.width, image.height))?;
         Ok((image, labels))
+    }
+
+    /// Reads an entry's labels and checks them against the image header, without decoding
+    /// the image's pixels.
+    pub fn load_labels_checked(&self, entry: &ImageEntry) -> Result<(ImageHeader, LabelMap)> {
+        let label_path = entry
+            .labels
+            .as_ref()
+            .ok_or_else(|| GroveError::input(&entry.image, "image has no label file"))?;
+        let header = probe_image(&entry.image)?;
+        let labels = self.read_labels(label_path)?;
+        check_sizes(entry, label_path, &labels, (header.width, header.height))?;
+        Ok((header, labels))
     }
 
     pub fn read_labels(&self, path: &Path) -> Result<LabelMap> {

@@ -277,7 +277,7 @@ fn encode_png(
         enc.set_color(color);
         enc.set_depth(png::BitDepth::Eight);
         // fdeflate's fast mode: apply writes several PNGs per image, and at the default level
-        // at the default level their encoding was ~7 % of `apply`; measured on 20 demo scenes:
+        // their encoding was ~7 % of `apply`; measured on 20 demo scenes:
         // 4.5 → 3.6 s, and the files came out no larger (6.5 → 6.4 MB).
         enc.set_compression(png::Compression::Fast);
         if let Some(p) = palette {

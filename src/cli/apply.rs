@@ -7,9 +7,10 @@ use clap::Args;
 
 use crate::dataset::{list_images, stem_of};
 use crate::error::{GroveError, Result};
-use crate::imageio::{has_image_extension, read_image};
+use crate::imageio::{has_image_extension, read_image, RasterImage};
 use crate::outputs::{write_outputs, OutputOptions};
 use crate::progress::Progress;
+use crate::segmenter::Probabilities;
 
 #[derive(Args, Debug)]
 pub struct ApplyArgs {
@@ -94,34 +95,50 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
     let bar = progress.stage("applying", images.len() as u64);
     let mut pixels = 0usize;
     let mut warned = false;
-    for path in &images {
-        let img = read_image(path)?;
-        if !warned && img.is_grey() != (model.features.channels == 1) {
-            warned = true;
-            let (model_kind, image_kind) = if img.is_grey() {
-                ("colour", "grey")
-            } else {
-                ("grey", "colour")
+    // Encoding the PNGs of one image overlaps the decoding and prediction of the next: PNG
+    // coding is single-threaded, prediction uses every core.
+    std::thread::scope(|scope| -> Result<()> {
+        let (tx, rx) = std::sync::mpsc::sync_channel::<(String, RasterImage, Probabilities)>(1);
+        let writer = scope.spawn(|| -> Result<()> {
+            for (stem, img, probs) in rx {
+                write_outputs(&args.out, &stem, &img, &probs, &model.classes, &opts)?;
+                bar.inc(1);
+            }
+            Ok(())
+        });
+        let mut predicted = Ok(());
+        for path in &images {
+            let img = match read_image(path) {
+                Ok(img) => img,
+                Err(e) => {
+                    predicted = Err(e);
+                    break;
+                }
             };
-            bar.suspend(|| {
-                eprintln!(
-                    "warning: {}: {image_kind} image, but the model was trained on {model_kind} images; results may be poor (train on images like the ones you apply to)",
-                    path.display()
-                )
-            });
+            if !warned && img.is_grey() != (model.features.channels == 1) {
+                warned = true;
+                let (model_kind, image_kind) = if img.is_grey() {
+                    ("colour", "grey")
+                } else {
+                    ("grey", "colour")
+                };
+                bar.suspend(|| {
+                    eprintln!(
+                        "warning: {}: {image_kind} image, but the model was trained on {model_kind} images; results may be poor (train on images like the ones you apply to)",
+                        path.display()
+                    )
+                });
+            }
+            let probs = model.predict_proba(&img);
+            pixels += img.width * img.height;
+            if tx.send((stem_of(path), img, probs)).is_err() {
+                break; // the writer stopped on an error, which join reports
+            }
         }
-        let probs = model.predict_proba(&img);
-        write_outputs(
-            &args.out,
-            &stem_of(path),
-            &img,
-            &probs,
-            &model.classes,
-            &opts,
-        )?;
-        pixels += img.width * img.height;
-        bar.inc(1);
-    }
+        drop(tx);
+        let written = writer.join().expect("the output writer does not panic");
+        predicted.and(written)
+    })?;
     bar.finish_and_clear();
     let secs = t0.elapsed().as_secs_f64();
     println!(

@@ -35,6 +35,17 @@ pub fn run(args: InfoArgs) -> Result<()> {
         if m.features.channels == 1 { "" } else { "s" },
         m.features.textons.as_ref().map_or(0, |t| t.k())
     );
+    let c = &p.config;
+    println!(
+        "  settings: scales {:?}{}, texton windows {:?}, {} samples per image, depth ≤ {}, leaf ≥ {}{}",
+        c.features.bank.scales,
+        if c.features.bank.filter_chroma { "" } else { " (lightness only)" },
+        c.features.texton_windows,
+        c.samples_per_image,
+        c.forest.max_depth,
+        c.forest.min_samples_leaf,
+        if c.features.position { ", position on" } else { ", position off" }
+    );
     if let Some(oob) = p.oob_accuracy {
         println!("  out-of-bag accuracy on sampled pixels: {oob:.4}");
     }

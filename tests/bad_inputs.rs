@@ -218,3 +218,21 @@ fn damaged_model_files_are_refused_clearly() {
         .unwrap_err()
         .contains("not a grove model"));
 }
+
+#[test]
+fn non_png_label_files_are_flagged() {
+    let t = tempfile::tempdir().unwrap();
+    let root = dataset(t.path(), TABLE, &[("a", 16, 16, halves(16, 16))]);
+    image::GrayImage::from_raw(16, 16, halves(16, 16))
+        .unwrap()
+        .save(root.join("labels/a.jpg"))
+        .unwrap();
+    let ds = Dataset::open(&root, LabelOptions::default()).unwrap();
+    assert!(
+        ds.warnings
+            .iter()
+            .any(|w| w.contains("a.jpg") && w.contains("must be PNG")),
+        "{:?}",
+        ds.warnings
+    );
+}

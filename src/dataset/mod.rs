@@ -123,7 +123,15 @@ impl Dataset {
         if labels_dir.is_dir() {
             for label in list_images(&labels_dir)? {
                 let stem = stem_of(&label);
-                if !entries.iter().any(|e| e.stem == stem) {
+                let is_png = label
+                    .extension()
+                    .is_some_and(|e| e.eq_ignore_ascii_case("png"));
+                if !is_png {
+                    warnings.push(format!(
+                        "{}: label files must be PNG (lossy formats change class values); ignored",
+                        label.display()
+                    ));
+                } else if !entries.iter().any(|e| e.stem == stem) {
                     warnings.push(format!(
                         "{}: label file has no matching image; ignored",
                         label.display()

@@ -53,28 +53,6 @@ pub fn stem_of(path: &Path) -> String {
         .unwrap_or_default()
 }
 
-fn check_sizes(
-    entry: &ImageEntry,
-    label_path: &Path,
-    labels: &LabelMap,
-    image: (usize, usize),
-) -> Result<()> {
-    if (labels.width, labels.height) == image {
-        return Ok(());
-    }
-    Err(GroveError::input(
-        label_path,
-        format!(
-            "label size {}x{} differs from image size {}x{} ({})",
-            labels.width,
-            labels.height,
-            image.0,
-            image.1,
-            entry.image.display()
-        ),
-    ))
-}
-
 impl Dataset {
     /// Opens `root`, reading `classes.toml` and pairing `images/X.*` with `labels/X.png`.
     pub fn open(root: &Path, label_options: LabelOptions) -> Result<Dataset> {
@@ -155,27 +133,40 @@ impl Dataset {
 
     /// Reads an entry's image and labels, checking that their sizes agree.
     pub fn load_pair(&self, entry: &ImageEntry) -> Result<(RasterImage, LabelMap)> {
-        let label_path = entry
-            .labels
-            .as_ref()
-            .ok_or_else(|| GroveError::input(&entry.image, "image has no label file"))?;
         let image = read_image(&entry.image)?;
-        let labels = self.read_labels(label_path)?;
-        check_sizes(entry, label_path, &labels, (image.width, image.height))?;
+        let labels = self.labels_of_size(entry, (image.width, image.height))?;
         Ok((image, labels))
     }
 
     /// Reads an entry's labels and checks them against the image header, without decoding
     /// the image's pixels.
     pub fn load_labels_checked(&self, entry: &ImageEntry) -> Result<(ImageHeader, LabelMap)> {
+        let header = probe_image(&entry.image)?;
+        let labels = self.labels_of_size(entry, (header.width, header.height))?;
+        Ok((header, labels))
+    }
+
+    /// The entry's labels, which must cover an image of `size` (width, height).
+    fn labels_of_size(&self, entry: &ImageEntry, size: (usize, usize)) -> Result<LabelMap> {
         let label_path = entry
             .labels
             .as_ref()
             .ok_or_else(|| GroveError::input(&entry.image, "image has no label file"))?;
-        let header = probe_image(&entry.image)?;
         let labels = self.read_labels(label_path)?;
-        check_sizes(entry, label_path, &labels, (header.width, header.height))?;
-        Ok((header, labels))
+        if (labels.width, labels.height) != size {
+            return Err(GroveError::input(
+                label_path,
+                format!(
+                    "label size {}x{} differs from image size {}x{} ({})",
+                    labels.width,
+                    labels.height,
+                    size.0,
+                    size.1,
+                    entry.image.display()
+                ),
+            ));
+        }
+        Ok(labels)
     }
 
     pub fn read_labels(&self, path: &Path) -> Result<LabelMap> {

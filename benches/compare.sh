@@ -69,9 +69,10 @@ now() { date +%s.%N; }
 median() { sort -g | awk '{a[NR]=$1} END {print (NR%2 ? a[(NR+1)/2] : (a[NR/2]+a[NR/2+1])/2)}'; }
 
 run_grove() {  # DIR -> prints "seconds miou"
+  # --position: the reference pipeline always has position features; compare like with like.
   local d=$1 t0 t1
   t0=$(now)
-  $GROVE train "$d/train" --model "$d/grove.model" --trees 32 --samples-per-image 5000 --textons 32 --quiet >/dev/null
+  $GROVE train "$d/train" --model "$d/grove.model" --trees 32 --samples-per-image 5000 --textons 32 --position --quiet >/dev/null
   $GROVE eval "$d/grove.model" "$d/test" --json "$d/grove.json" --quiet >/dev/null
   t1=$(now)
   echo "$(echo "$t1 - $t0" | bc -l) $(python3 -c "import json,sys; print(json.load(open(sys.argv[1]))['mean_iou'])" "$d/grove.json")"

@@ -1,5 +1,5 @@
 //! End to end per image: `Segmenter::predict_proba` on one 512 × 512 demo scene with the default
-//! model (78 features, 32 textons, 32 trees), split into features and forest, so a change in
+//! model plus position features (78 features, 32 textons, 32 trees, as in the README table), split into features and forest, so a change in
 //! either shows up in the number that `apply` users feel.
 
 use std::time::Duration;
@@ -15,9 +15,9 @@ fn bench(c: &mut Criterion) {
     let ds = Dataset::open(dir.path(), Default::default()).unwrap();
     let (train, test) = ds.entries.split_at(4);
     let train: Vec<_> = train.iter().collect();
-    let model = TrainConfig::default()
-        .fit(&ds, &train, Default::default())
-        .unwrap();
+    let mut cfg = TrainConfig::default();
+    cfg.features.position = true;
+    let model = cfg.fit(&ds, &train, Default::default()).unwrap();
     let image = read_image(&test[0].image).unwrap();
     let stack = model.features.features(&image);
     let rows = stack.gather_rows(&(0..(512 * 512) as u32).collect::<Vec<_>>());

@@ -374,4 +374,12 @@ impl Segmenter {
         v.sort_by(|a, b| b.1.total_cmp(&a.1));
         v
     }
+
+    /// Rank (0 = most important) of the best position feature, if the model has them. A high
+    /// rank is the usual sign that the model learnt where things sat in the training frames.
+    pub fn position_rank(&self) -> Option<usize> {
+        self.ranked_importances()
+            .iter()
+            .position(|(n, _)| crate::features::stack::POSITION_NAMES.contains(&n.as_str()))
+    }
 }

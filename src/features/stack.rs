@@ -18,7 +18,9 @@ use crate::plane::Plane;
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct FeatureConfig {
     pub bank: FilterBankConfig,
-    /// Append normalised x and y (helps when classes sit in typical places, e.g. MRI).
+    /// Append normalised x and y. Off by default: only where a class really sits in the same
+    /// place in every image (registered scans such as MRI templates, a fixed camera) do they
+    /// carry over to new images; elsewhere they learn where things happened to be.
     pub position: bool,
     /// Texton dictionary size k; 0 disables texton features.
     pub textons: usize,
@@ -36,7 +38,7 @@ impl Default for FeatureConfig {
     fn default() -> Self {
         FeatureConfig {
             bank: FilterBankConfig::default(),
-            position: true,
+            position: false,
             textons: 32,
             texton_windows: vec![15],
             texton_samples_per_image: 5000,
@@ -165,7 +167,7 @@ impl FeatureExtractor {
     pub fn names(&self) -> Vec<String> {
         let mut names = filter_bank_names(self.channels, &self.config.bank);
         if self.config.position {
-            names.extend(["pos_x".to_string(), "pos_y".to_string()]);
+            names.extend(POSITION_NAMES.map(String::from));
         }
         if let Some(dict) = &self.textons {
             for &win in &self.config.texton_windows {
@@ -191,6 +193,9 @@ pub fn gather_rows(planes: &[Plane], pixels: &[u32]) -> Vec<f32> {
     }
     out
 }
+
+/// Names of the two position features.
+pub const POSITION_NAMES: [&str; 2] = ["pos_x", "pos_y"];
 
 /// x / (w - 1) and y / (h - 1), so both run over [0, 1] whatever the image size.
 pub fn position_planes(w: usize, h: usize) -> [Plane; 2] {

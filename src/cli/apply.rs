@@ -7,6 +7,7 @@ use clap::Args;
 
 use crate::dataset::{list_images, stem_of};
 use crate::error::{GroveError, Result};
+use crate::eval::areas::{count_classes, AreaTable, PixelSize, RoiMasks};
 use crate::imageio::{has_image_extension, read_image, RasterImage};
 use crate::outputs::{write_outputs, OutputOptions};
 use crate::progress::Progress;
@@ -19,7 +20,8 @@ pub struct ApplyArgs {
     /// Images, or folders of images (a dataset folder's images/ is used if present).
     #[arg(required = true)]
     pub inputs: Vec<PathBuf>,
-    /// Output folder (labels/, overlays/, confidence/, probabilities/ are created inside).
+    /// Output folder (labels/, overlays/, confidence/, probabilities/ are created inside, and
+    /// areas.csv, areas.json and classes.toml).
     #[arg(long, short, value_name = "DIR")]
     pub out: PathBuf,
     /// Also write the confidence map (winning class probability, 0–255): dark = unsure.
@@ -34,6 +36,14 @@ pub struct ApplyArgs {
     /// Class colour weight in overlays, 0–1.
     #[arg(long, default_value_t = 0.45, value_name = "W")]
     pub opacity: f32,
+    /// Side of one pixel with its unit (e.g. 0.05m, 2.5um): areas.csv/json then give areas
+    /// in the unit squared as well as pixel counts.
+    #[arg(long, value_name = "SIZE")]
+    pub pixel_size: Option<PixelSize>,
+    /// Folder of region-of-interest masks (same stems as the images; white = counted): area
+    /// figures count only inside them, and fractions are of the ROI.
+    #[arg(long, value_name = "DIR")]
+    pub roi: Option<PathBuf>,
 }
 
 /// Expands files and folders into image paths, keeping the given order.
@@ -85,6 +95,12 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
     }
     let model = crate::model::load(&args.model)?;
     let images = collect_inputs(&args.inputs)?;
+    let roi = args.roi.as_deref().map(RoiMasks::open).transpose()?;
+    if let Some(r) = &roi {
+        let stems: Vec<String> = images.iter().map(|p| stem_of(p)).collect();
+        r.check_covers(stems.iter().map(String::as_str))?;
+    }
+    let mut areas = AreaTable::new(model.classes.names(), args.pixel_size.clone());
     let opts = OutputOptions {
         overlay: !args.no_overlay,
         confidence: args.confidence,
@@ -101,7 +117,13 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
         let (tx, rx) = std::sync::mpsc::sync_channel::<(String, RasterImage, Probabilities)>(1);
         let writer = scope.spawn(|| -> Result<()> {
             for (stem, img, probs) in rx {
-                write_outputs(&args.out, &stem, &img, &probs, &model.classes, &opts)?;
+                let index = write_outputs(&args.out, &stem, &img, &probs, &model.classes, &opts)?;
+                let mask = match &roi {
+                    Some(r) => Some(r.mask(&stem, img.width, img.height)?),
+                    None => None,
+                };
+                let counts = count_classes(&index, model.classes.len(), mask.as_deref());
+                areas.add_counts(&stem, &counts);
                 bar.inc(1);
             }
             Ok(())
@@ -140,6 +162,13 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
         predicted.and(written)
     })?;
     bar.finish_and_clear();
+    areas.write(&args.out)?;
+    // The class table beside the label maps makes the output folder readable on its own
+    // (`grove areas` needs the names of the ids).
+    crate::imageio::write_atomic(
+        &args.out.join("classes.toml"),
+        model.classes.to_toml().as_bytes(),
+    )?;
     let secs = t0.elapsed().as_secs_f64();
     println!(
         "segmented {} image{} ({:.2} Mpx) in {secs:.1} s; label maps in {}",

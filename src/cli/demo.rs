@@ -8,6 +8,7 @@ use clap::Args;
 use crate::dataset::{Dataset, ImageEntry, LabelOptions};
 use crate::demo::write_demo_dataset;
 use crate::error::Result;
+use crate::eval::areas::{count_classes, AreaTable};
 use crate::eval::score::{evaluate_with, MetricsReport};
 use crate::imageio::{read_image, write_atomic, RasterImage};
 use crate::outputs::{write_outputs, OutputOptions};
@@ -76,8 +77,12 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
         confidence: true,
         ..OutputOptions::default()
     };
+    let areas = std::cell::RefCell::new(AreaTable::new(model.classes.names(), None));
     let deliver = |e: &ImageEntry, img: &RasterImage, probs: &Probabilities| {
-        write_outputs(&pred_dir, &e.stem, img, probs, &model.classes, &opts).map(|_| ())
+        let index = write_outputs(&pred_dir, &e.stem, img, probs, &model.classes, &opts)?;
+        let counts = count_classes(&index, model.classes.len(), None);
+        areas.borrow_mut().add_counts(&e.stem, &counts);
+        Ok(())
     };
     let cm = evaluate_with(&model, &test, &test.labelled(), progress, deliver)?;
     let report = MetricsReport::new(
@@ -92,6 +97,7 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
         let img = read_image(&e.image)?;
         deliver(e, &img, &model.predict_proba(&img))?;
     }
+    areas.borrow().write(&pred_dir)?;
     println!("outputs:");
     let show = |what: &str, p: &Path| println!("  {what:<22} {}", p.display());
     show("model", &model_path);
@@ -99,6 +105,7 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
     show("label maps", &pred_dir.join("labels"));
     show("overlays", &pred_dir.join("overlays"));
     show("confidence maps", &pred_dir.join("confidence"));
+    show("class areas", &pred_dir.join("areas.csv"));
     println!(
         "done in {:.1} s. The same steps by hand:",
         t0.elapsed().as_secs_f64()

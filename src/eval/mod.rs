@@ -1,5 +1,7 @@
-//! Evaluation of predicted label maps against ground truth.
+//! Evaluation of predicted label maps against ground truth, and what follows from the maps:
+//! area figures.
 
+pub mod areas;
 pub mod confusion;
 pub mod score;
 

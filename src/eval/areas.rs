@@ -57,7 +57,7 @@ impl FromStr for PixelSize {
     type Err = GroveError;
 
     fn from_str(text: &str) -> Result<Self> {
-        let t = text.trim().replace('µ', "u").replace('μ', "u");
+        let t = text.trim().replace(['µ', 'μ'], "u");
         let split = t.find(|c: char| c.is_ascii_alphabetic()).unwrap_or(t.len());
         let (num, unit) = t.split_at(split);
         let bad = |why: &str| {
@@ -333,9 +333,11 @@ impl AreaTable {
         let with_area = match cols.iter().map(String::as_str).collect::<Vec<_>>()[..] {
             ["image", "class", "pixels", "fraction"] => false,
             ["image", "class", "pixels", "fraction", "area", "unit"] => true,
-            _ => return Err(format!(
+            _ => {
+                return Err(format!(
                 "unexpected header '{header}' (expected image,class,pixels,fraction[,area,unit])"
-            )),
+            ))
+            }
         };
         let mut rows = Vec::new();
         let mut classes: Vec<String> = Vec::new();

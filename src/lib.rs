@@ -1,8 +1,8 @@
 //! grove: classical, CPU-only semantic segmentation trained from a few labelled images.
 //!
 //! The modules follow the data flow: `dataset` → `features` → `forest` → `segmenter`
-//! (fit / predict) → `eval` and `outputs`; `model` is the file format; `demo` makes the
-//! built-in synthetic farm scenes; `cli` is the thin command layer.
+//! (fit / predict) → `smooth` (optional CRF) → `eval` and `outputs`; `model` is the file
+//! format; `demo` makes the built-in synthetic farm scenes; `cli` is the thin command layer.
 
 pub mod cli;
 pub mod dataset;
@@ -17,6 +17,7 @@ pub mod outputs;
 pub mod plane;
 pub mod progress;
 pub mod segmenter;
+pub mod smooth;
 
 pub use error::{GroveError, Result};
 pub use plane::Plane;

@@ -80,6 +80,7 @@ pub struct Segmenter {
 }
 
 /// Per-pixel class probabilities, pixel-major (`data[p * n_classes + c]`).
+#[derive(Clone, Debug, PartialEq)]
 pub struct Probabilities {
     pub width: usize,
     pub height: usize,

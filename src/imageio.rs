@@ -5,7 +5,7 @@
 //! sees the same range. Outputs are written to a temporary name in the target folder and
 //! renamed, so an interrupted run never leaves half a file behind.
 
-use std::io::{BufReader, Cursor, Write};
+use std::io::{BufReader, Cursor};
 use std::path::{Path, PathBuf};
 
 use image::DynamicImage;
@@ -243,26 +243,7 @@ pub fn read_label_png(path: &Path) -> Result<LabelFile> {
     })
 }
 
-/// Writes `bytes` to `path` via a temporary file in the same folder and a rename, so
-/// readers never see a partial file and a crash leaves at most a stray temporary.
-pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
-    let dir = path
-        .parent()
-        .filter(|p| !p.as_os_str().is_empty())
-        .unwrap_or(Path::new("."));
-    std::fs::create_dir_all(dir).map_err(|e| GroveError::io(dir, e))?;
-    let mut tmp = tempfile::Builder::new()
-        .prefix(".grove-tmp-")
-        .tempfile_in(dir)
-        .map_err(|e| GroveError::io(dir, e))?;
-    tmp.write_all(bytes).map_err(|e| GroveError::io(path, e))?;
-    tmp.as_file()
-        .sync_all()
-        .map_err(|e| GroveError::io(path, e))?;
-    tmp.persist(path)
-        .map_err(|e| GroveError::io(path, e.error))?;
-    Ok(())
-}
+pub use crate::atomic_write::write_atomic;
 
 fn encode_png(
     width: usize,
@@ -283,6 +264,16 @@ fn encode_png(
         if let Some(p) = palette {
             enc.set_palette(p);
         }
+        // Marks the file as grove's own, so a re-run may replace it (see `output_guard`).
+        enc.add_text_chunk(
+            "Software".into(),
+            format!(
+                "{} {}",
+                crate::output_guard::SIGNATURE,
+                env!("CARGO_PKG_VERSION")
+            ),
+        )
+        .expect("a Latin-1 keyword and text");
         // Writing into a Vec cannot fail for valid dimensions, which callers guarantee.
         let mut writer = enc.write_header().expect("png header");
         writer.write_image_data(data).expect("png data");
@@ -322,9 +313,13 @@ pub fn write_rgb_png(path: &Path, width: usize, height: usize, rgb: &[u8]) -> Re
     )
 }
 
-/// Output path `dir/stem.ext`.
+/// Output path `dir/NAME.ext`, where NAME is `stem` made safe as one path component
+/// ([`crate::output_guard::safe_file_name`]): names from data never steer where files go.
 pub fn output_path(dir: &Path, stem: &str, ext: &str) -> PathBuf {
-    dir.join(format!("{stem}.{ext}"))
+    dir.join(format!(
+        "{}.{ext}",
+        crate::output_guard::safe_file_name(stem)
+    ))
 }
 
 #[cfg(test)]

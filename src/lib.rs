@@ -4,6 +4,7 @@
 //! (fit / predict) → `smooth` (optional CRF) → `eval` and `outputs`; `model` is the file
 //! format; `demo` makes the built-in synthetic farm scenes; `cli` is the thin command layer.
 
+pub mod atomic_write;
 pub mod cli;
 pub mod dataset;
 pub mod demo;
@@ -13,6 +14,7 @@ pub mod features;
 pub mod forest;
 pub mod imageio;
 pub mod model;
+pub mod output_guard;
 pub mod outputs;
 pub mod plane;
 pub mod progress;

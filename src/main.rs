@@ -8,5 +8,7 @@ fn main() {
     unsafe {
         libc::signal(libc::SIGPIPE, libc::SIG_DFL);
     }
+    // Before any thread starts (see `atomic_write`): SIGINT/SIGTERM remove temporaries.
+    grove::atomic_write::install_signal_cleanup();
     std::process::exit(grove::cli::run());
 }

@@ -74,6 +74,12 @@ pub fn from_bytes(bytes: &[u8]) -> std::result::Result<Segmenter, String> {
             HEADER as u64 + len as u64 + 8
         ));
     };
+    if end + 8 != bytes.len() {
+        return Err(format!(
+            "model file has {} unexpected bytes after its end (damaged, or two files joined); use the file as `grove train` wrote it",
+            bytes.len() - end - 8
+        ));
+    }
     let payload = &bytes[HEADER..end];
     let stored = u64::from_le_bytes(bytes[end..end + 8].try_into().expect("8 bytes"));
     if stored != fnv1a(payload) {
@@ -82,8 +88,11 @@ pub fn from_bytes(bytes: &[u8]) -> std::result::Result<Segmenter, String> {
     // The limit caps what length prefixes inside the payload may claim, so a crafted file
     // cannot make the decoder try to allocate more than a model could ever need.
     let config = bincode::config::standard().with_limit::<MAX_DECODED_BYTES>();
-    let (model, _): (Segmenter, usize) = bincode::serde::decode_from_slice(payload, config)
+    let (model, used): (Segmenter, usize) = bincode::serde::decode_from_slice(payload, config)
         .map_err(|e| format!("model payload cannot be read: {e}"))?;
+    if used != payload.len() {
+        return Err("model payload has trailing bytes; the file is damaged".into());
+    }
     model
         .check()
         .map_err(|e| format!("model is inconsistent ({e}); retrain it with this grove"))?;
@@ -95,11 +104,37 @@ pub fn save(model: &Segmenter, path: &Path) -> Result<()> {
     write_atomic(path, &to_bytes(model))
 }
 
+/// Reads a file that should be a model, checking what it is before reading it all: a folder,
+/// a device (`/dev/zero`) or a file larger than any model is refused without reading it.
+fn read_bounded(path: &Path) -> std::result::Result<Vec<u8>, String> {
+    use std::io::Read;
+    let meta = std::fs::metadata(path).map_err(|e| crate::error::describe_io(&e))?;
+    if meta.is_dir() {
+        return Err("is a folder, not a model file (are the arguments in the right order?)".into());
+    }
+    if !meta.is_file() {
+        return Err(
+            "is not a regular file (a device or pipe?); pass a model file written by `grove train`"
+                .into(),
+        );
+    }
+    let limit = MAX_DECODED_BYTES as u64 + HEADER as u64 + 8;
+    if meta.len() > limit {
+        return Err(format!(
+            "is {} bytes, more than any grove model ({limit} at most); pass a model file written by `grove train`",
+            meta.len()
+        ));
+    }
+    let file = std::fs::File::open(path).map_err(|e| crate::error::describe_io(&e))?;
+    let mut bytes = Vec::with_capacity(meta.len() as usize);
+    file.take(limit + 1)
+        .read_to_end(&mut bytes)
+        .map_err(|e| crate::error::describe_io(&e))?;
+    Ok(bytes)
+}
+
 /// Reads a model, with a clear error for anything that is not a usable grove model.
 pub fn load(path: &Path) -> Result<Segmenter> {
-    let bytes = std::fs::read(path).map_err(|e| GroveError::io(path, e))?;
-    from_bytes(&bytes).map_err(|message| GroveError::Model {
-        path: path.to_path_buf(),
-        message,
-    })
+    let bytes = read_bounded(path).map_err(|message| GroveError::model(path, message))?;
+    from_bytes(&bytes).map_err(|message| GroveError::model(path, message))
 }

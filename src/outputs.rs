@@ -5,7 +5,7 @@
 //! Layout under the output folder: `labels/STEM.png`, `overlays/STEM.png`,
 //! `confidence/STEM.png`, `probabilities/STEM/CLASS.png`.
 
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
 use crate::dataset::ClassTable;
 use crate::error::Result;
@@ -55,6 +55,48 @@ pub fn overlay(
     rgb
 }
 
+/// Where the outputs of image `stem` go (the one place that knows the layout); the names
+/// are made safe by [`output_path`], so a stem or class name cannot leave `out_dir`.
+pub struct OutputPaths {
+    pub labels: PathBuf,
+    pub overlay: Option<PathBuf>,
+    pub confidence: Option<PathBuf>,
+    /// One per class, in class-table order.
+    pub probabilities: Vec<PathBuf>,
+}
+
+impl OutputPaths {
+    pub fn new(out_dir: &Path, stem: &str, classes: &ClassTable, opts: &OutputOptions) -> Self {
+        let in_sub = |sub: &str| output_path(&out_dir.join(sub), stem, "png");
+        let prob_dir = out_dir
+            .join("probabilities")
+            .join(crate::output_guard::safe_file_name(stem));
+        OutputPaths {
+            labels: in_sub("labels"),
+            overlay: opts.overlay.then(|| in_sub("overlays")),
+            confidence: opts.confidence.then(|| in_sub("confidence")),
+            probabilities: if opts.probabilities {
+                classes
+                    .classes()
+                    .iter()
+                    .map(|c| output_path(&prob_dir, &c.name, "png"))
+                    .collect()
+            } else {
+                Vec::new()
+            },
+        }
+    }
+
+    /// Every path, for checking them all before any work starts.
+    pub fn all(&self) -> Vec<&Path> {
+        let mut v = vec![self.labels.as_path()];
+        v.extend(self.overlay.as_deref());
+        v.extend(self.confidence.as_deref());
+        v.extend(self.probabilities.iter().map(PathBuf::as_path));
+        v
+    }
+}
+
 /// Writes the outputs for one image; returns the class index map it wrote.
 pub fn write_outputs(
     out_dir: &Path,
@@ -70,37 +112,19 @@ pub fn write_outputs(
         .iter()
         .map(|&c| classes.classes()[c as usize].id)
         .collect();
-    write_label_png(
-        &output_path(&out_dir.join("labels"), stem, "png"),
-        w,
-        h,
-        &ids,
-        &classes.palette(),
-    )?;
-    if opts.overlay {
+    let paths = OutputPaths::new(out_dir, stem, classes, opts);
+    write_label_png(&paths.labels, w, h, &ids, &classes.palette())?;
+    if let Some(path) = &paths.overlay {
         let rgb = overlay(image, &index, classes, opts.overlay_opacity);
-        write_rgb_png(
-            &output_path(&out_dir.join("overlays"), stem, "png"),
-            w,
-            h,
-            &rgb,
-        )?;
+        write_rgb_png(path, w, h, &rgb)?;
     }
-    if opts.confidence {
+    if let Some(path) = &paths.confidence {
         let conf: Vec<u8> = probs.confidence().into_iter().map(to_u8).collect();
-        write_grey_png(
-            &output_path(&out_dir.join("confidence"), stem, "png"),
-            w,
-            h,
-            &conf,
-        )?;
+        write_grey_png(path, w, h, &conf)?;
     }
-    if opts.probabilities {
-        let dir = out_dir.join("probabilities").join(stem);
-        for (c, info) in classes.classes().iter().enumerate() {
-            let p: Vec<u8> = probs.class_plane(c).data.into_iter().map(to_u8).collect();
-            write_grey_png(&output_path(&dir, &info.name, "png"), w, h, &p)?;
-        }
+    for (c, path) in paths.probabilities.iter().enumerate() {
+        let p: Vec<u8> = probs.class_plane(c).data.into_iter().map(to_u8).collect();
+        write_grey_png(path, w, h, &p)?;
     }
     Ok(index)
 }

@@ -20,6 +20,9 @@ use crate::imageio::{read_image, RasterImage};
 use crate::plane::Plane;
 use crate::progress::Progress;
 
+/// Most labelled pixels sampled per training image (each is a row of all features).
+pub const MAX_SAMPLES_PER_IMAGE: usize = 1_000_000;
+
 /// Settings for training; validated by `fit`.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct TrainConfig {
@@ -130,10 +133,11 @@ impl TrainConfig {
     pub fn validate(&self) -> Result<()> {
         self.features.validate()?;
         self.forest.validate()?;
-        if self.samples_per_image == 0 {
-            return Err(GroveError::Config(
-                "samples per image must be positive".into(),
-            ));
+        if !(1..=MAX_SAMPLES_PER_IMAGE).contains(&self.samples_per_image) {
+            return Err(GroveError::Config(format!(
+                "samples per image = {} must be between 1 and {MAX_SAMPLES_PER_IMAGE}",
+                self.samples_per_image
+            )));
         }
         Ok(())
     }
@@ -338,6 +342,7 @@ impl Segmenter {
     /// class and feature counts before any image is pushed through them.
     pub fn check(&self) -> std::result::Result<(), String> {
         self.forest.check()?;
+        self.classes.validate()?;
         if self.forest.n_classes() != self.classes.len() {
             return Err("forest and class table disagree on the number of classes".into());
         }

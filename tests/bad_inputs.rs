@@ -1,5 +1,5 @@
 //! Bad input produces a clear error naming the file, never a panic (checked through the
-//! library and through the `grove` binary, whose exit code must be 1, not a panic's 101).
+//! library and through the `grove` binary, whose exit code says the kind of error (3 input data, 4 model file...), not a panic's 101).
 
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -171,7 +171,7 @@ fn binary_reports_errors_without_panicking() {
         "--model",
         model.to_str().unwrap(),
     ]);
-    assert_eq!(code, 1, "{err}");
+    assert_eq!(code, 3, "{err}");
     assert!(
         err.starts_with("error: ") && err.contains("only class 'crop'"),
         "{err}"
@@ -185,7 +185,7 @@ fn binary_reports_errors_without_panicking() {
         "--out",
         t.path().join("o").to_str().unwrap(),
     ]);
-    assert_eq!(code, 1, "{err}");
+    assert_eq!(code, 4, "{err}");
     assert!(
         err.contains("classes.toml") && err.contains("not a grove model"),
         "{err}"

@@ -9,7 +9,7 @@ use crate::dataset::{list_images, stem_of};
 use crate::error::{GroveError, Result};
 use crate::eval::areas::{count_classes, AreaTable, PixelSize, RoiMasks};
 use crate::imageio::{has_image_extension, read_image, RasterImage};
-use crate::outputs::{write_outputs, OutputOptions};
+use crate::outputs::{write_outputs, OutputOptions, OutputPaths};
 use crate::progress::Progress;
 use crate::segmenter::Probabilities;
 
@@ -44,6 +44,10 @@ pub struct ApplyArgs {
     /// figures count only inside them, and fractions are of the ROI.
     #[arg(long, value_name = "DIR")]
     pub roi: Option<PathBuf>,
+    /// Replace existing files in --out even if grove did not write them (grove's own
+    /// earlier outputs are always replaced; inputs never are).
+    #[arg(long)]
+    pub force: bool,
 }
 
 /// Expands files and folders into image paths, keeping the given order.
@@ -65,6 +69,7 @@ pub fn collect_inputs(inputs: &[PathBuf]) -> Result<Vec<PathBuf>> {
             if !has_image_extension(p) {
                 return Err(GroveError::input(p, "not a PNG, JPEG or TIFF file"));
             }
+            crate::dataset::check_utf8_name(p)?;
             out.push(p.clone());
         } else {
             return Err(GroveError::input(p, "no such file or folder"));
@@ -84,6 +89,42 @@ pub fn collect_inputs(inputs: &[PathBuf]) -> Result<Vec<PathBuf>> {
         }
     }
     Ok(out)
+}
+
+/// Every output path, checked before any image is read: none is an input, none replaces a
+/// file grove did not write (without --force), and no two images write the same file.
+fn check_outputs(
+    args: &ApplyArgs,
+    images: &[PathBuf],
+    classes: &crate::dataset::ClassTable,
+    opts: &OutputOptions,
+) -> Result<()> {
+    let inputs = images
+        .iter()
+        .chain(&args.inputs)
+        .map(PathBuf::as_path)
+        .chain(std::iter::once(args.model.as_path()));
+    let guard = crate::output_guard::OutputGuard::new(inputs, args.force);
+    guard.check_dir(&args.out)?;
+    guard.check_file(&args.out.join("classes.toml"))?;
+    let mut seen = std::collections::HashMap::new();
+    for image in images {
+        let paths = OutputPaths::new(&args.out, &stem_of(image), classes, opts);
+        for p in paths.all() {
+            if let Some(prev) = seen.insert(p.to_path_buf(), image) {
+                return Err(GroveError::input(
+                    image,
+                    format!(
+                        "its output {} would overwrite that of {}; rename one of them",
+                        p.display(),
+                        prev.display()
+                    ),
+                ));
+            }
+            guard.check_file(p)?;
+        }
+    }
+    Ok(())
 }
 
 pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
@@ -107,6 +148,7 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
         probabilities: args.probabilities,
         overlay_opacity: args.opacity,
     };
+    check_outputs(&args, &images, &model.classes, &opts)?;
     let t0 = Instant::now();
     let bar = progress.stage("applying", images.len() as u64);
     let mut pixels = 0usize;

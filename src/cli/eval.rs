@@ -18,6 +18,9 @@ pub struct EvalArgs {
     /// Also write the scores as JSON.
     #[arg(long, value_name = "FILE")]
     pub json: Option<PathBuf>,
+    /// Replace an existing file at --json even if grove did not write it.
+    #[arg(long)]
+    pub force: bool,
     #[command(flatten)]
     pub labels: LabelArgs,
 }
@@ -25,6 +28,10 @@ pub struct EvalArgs {
 pub fn run(args: EvalArgs, progress: Progress) -> Result<()> {
     let model = crate::model::load(&args.model)?;
     let ds = open_dataset(&args.data, &args.labels)?;
+    if let Some(json) = &args.json {
+        let inputs = ds.files().chain(std::iter::once(args.model.as_path()));
+        crate::output_guard::OutputGuard::new(inputs, args.force).check_file(json)?;
+    }
     if ds.classes != model.classes {
         return Err(GroveError::input(
             ds.root.join("classes.toml"),

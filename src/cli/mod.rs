@@ -8,15 +8,16 @@ mod train;
 
 use clap::{Parser, Subcommand};
 
+use crate::error::{ErrorKind, GroveError};
 use crate::progress::Progress;
 
 /// Train and apply CPU-only per-pixel segmenters from a few labelled images.
 #[derive(Parser, Debug)]
 #[command(name = "grove", version, about, long_about = None, propagate_version = true)]
 pub struct Cli {
-    /// Worker threads (default: all cores).
-    #[arg(long, global = true, value_name = "N")]
-    threads: Option<usize>,
+    /// Worker threads, 1–1024 (default: all cores).
+    #[arg(long, global = true, value_name = "N", value_parser = clap::value_parser!(u16).range(1..=MAX_THREADS))]
+    threads: Option<u16>,
     /// No progress bars (they are also off when stderr is not a terminal).
     #[arg(long, short, global = true)]
     quiet: bool,
@@ -45,36 +46,43 @@ enum Command {
     Info(info::InfoArgs),
 }
 
-/// Parses arguments, runs the command and returns the process exit code.
+/// Most worker threads accepted (more only costs start-up time and memory).
+const MAX_THREADS: i64 = 1024;
+
+/// Parses arguments, runs the command and returns the process exit code: 0 on success,
+/// 2 for usage errors (clap's own code too), then one code per [`ErrorKind`]
+/// (input data 3, model file 4, output 5, internal 70), documented in the README.
 pub fn run() -> i32 {
     let cli = Cli::parse();
     if let Some(n) = cli.threads {
-        if n == 0 {
-            eprintln!("error: --threads must be at least 1");
-            return 2;
-        }
         if let Err(e) = rayon::ThreadPoolBuilder::new()
-            .num_threads(n)
+            .num_threads(n as usize)
             .build_global()
         {
             eprintln!("error: cannot start {n} threads: {e}");
-            return 2;
+            return ErrorKind::Usage.exit_code();
         }
     }
     let progress =
         Progress::new(!cli.quiet && std::io::IsTerminal::is_terminal(&std::io::stderr()));
-    let result = match cli.command {
+    // A panic is a bug, never the user's fault: it gets the internal-error code, not 101.
+    let result = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| match cli.command {
         Command::Train(a) => train::run(a, progress),
         Command::Apply(a) => apply::run(a, progress),
         Command::Eval(a) => eval::run(a, progress),
         Command::Demo(a) => demo::run(a, progress),
         Command::Info(a) => info::run(a),
-    };
+    }))
+    .unwrap_or_else(|_| {
+        Err(GroveError::Internal(
+            "a grove thread panicked (see the message above)".into(),
+        ))
+    });
     match result {
         Ok(()) => 0,
         Err(e) => {
             eprintln!("error: {e}");
-            1
+            e.kind().exit_code()
         }
     }
 }

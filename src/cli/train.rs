@@ -19,28 +19,32 @@ const POSITION_WARN_RANK: usize = 5;
 pub struct TrainArgs {
     /// Dataset folder with images/, labels/ and classes.toml.
     pub data: PathBuf,
-    /// Where to write the model file.
+    /// Where to write the model file (never one of the dataset's files).
     #[arg(long, short, value_name = "FILE")]
     pub model: PathBuf,
-    /// Trees in the forest.
+    /// Replace an existing file at --model even if grove did not write it.
+    #[arg(long)]
+    pub force: bool,
+    /// Trees in the forest (1–4096).
     #[arg(long, default_value_t = 32, value_name = "N")]
     pub trees: usize,
-    /// Maximum tree depth.
+    /// Maximum tree depth (1–64).
     #[arg(long, default_value_t = 20, value_name = "N")]
     pub max_depth: usize,
-    /// Minimum training samples in a leaf.
+    /// Minimum training samples in a leaf (1–1000000).
     #[arg(long, default_value_t = 2, value_name = "N")]
     pub min_leaf: usize,
-    /// Labelled pixels sampled per image (split equally among the classes it contains).
+    /// Labelled pixels sampled per image, split equally among the classes it contains
+    /// (1–1000000).
     #[arg(long, default_value_t = 5000, value_name = "N")]
     pub samples_per_image: usize,
-    /// Texton dictionary size (0 turns texton features off).
+    /// Texton dictionary size (0–1024; 0 turns texton features off).
     #[arg(long, default_value_t = 32, value_name = "K")]
     pub textons: usize,
-    /// Texton histogram window sides in pixels (odd; one or two values).
+    /// Texton histogram window sides in pixels (odd, 1–65535; one or two values).
     #[arg(long, value_delimiter = ',', default_value = "15", value_name = "PX")]
     pub texton_windows: Vec<usize>,
-    /// Filter scales (Gaussian sigma, pixels).
+    /// Filter scales (Gaussian sigma in pixels, each in (0, 64], at most 16 distinct).
     #[arg(
         long,
         value_delimiter = ',',
@@ -85,9 +89,13 @@ impl TrainArgs {
 
 pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
     let t0 = Instant::now();
+    let config = args.config();
+    config.validate()?;
     let ds = open_dataset(&args.data, &args.labels)?;
+    // Before any work: an hour of training must not end in "cannot write".
+    crate::output_guard::OutputGuard::new(ds.files(), args.force).check_file(&args.model)?;
     let entries = ds.labelled();
-    let model = args.config().fit(&ds, &entries, progress)?;
+    let model = config.fit(&ds, &entries, progress)?;
     crate::model::save(&model, &args.model)?;
     let p = &model.provenance;
     println!(

@@ -37,6 +37,43 @@ struct ClassEntry {
     color: String,
 }
 
+/// Longest class name accepted, in characters (names label tables, file names and columns).
+pub const MAX_CLASS_NAME_CHARS: usize = 64;
+
+/// Checks a class name. Names end up in output file names (`probabilities/IMAGE/NAME.png`),
+/// in tables and in CSV/JSON keys, and a model or dataset from someone else must not steer
+/// where files go: no path separators, no leading `.` (so no `..`), no control characters
+/// (newlines would break tables), no surrounding spaces, 1 to 64 characters.
+pub fn check_class_name(name: &str) -> std::result::Result<(), String> {
+    let shown = name.escape_debug();
+    if name.trim().is_empty() {
+        return Err("a class has an empty name".into());
+    }
+    if name.chars().count() > MAX_CLASS_NAME_CHARS {
+        return Err(format!(
+            "class name '{shown}' is longer than {MAX_CLASS_NAME_CHARS} characters"
+        ));
+    }
+    if let Some(c) = name
+        .chars()
+        .find(|&c| c == '/' || c == '\\' || c.is_control())
+    {
+        return Err(format!(
+            "class name '{shown}' contains {}; names become file names, so use letters, digits, spaces, '-' or '_'",
+            if c.is_control() { "a control character (e.g. a newline or tab)".to_string() } else { format!("'{c}'") }
+        ));
+    }
+    if name.starts_with('.') {
+        return Err(format!(
+            "class name '{shown}' starts with '.'; names become file names, so start with a letter or digit"
+        ));
+    }
+    if name.trim() != name {
+        return Err(format!("class name '{shown}' starts or ends with a space"));
+    }
+    Ok(())
+}
+
 /// Parses `#rrggbb` (the leading `#` is optional).
 pub fn parse_hex_colour(text: &str) -> Option<[u8; 3]> {
     let hex = text.trim().trim_start_matches('#');
@@ -79,9 +116,6 @@ impl ClassTable {
                     c.name
                 ));
             }
-            if c.name.trim().is_empty() {
-                return Err(format!("class with id {id} has an empty name"));
-            }
             let color = parse_hex_colour(&c.color).ok_or_else(|| {
                 format!(
                     "class '{}' has colour '{}'; expected #rrggbb",
@@ -99,14 +133,29 @@ impl ClassTable {
 
     /// Validates a table built in code.
     pub fn new(classes: Vec<ClassInfo>) -> std::result::Result<Self, String> {
+        let table = ClassTable { classes };
+        table.validate()?;
+        Ok(table)
+    }
+
+    /// The table's rules (also applied to tables read from model files, which bypass `new`).
+    pub fn validate(&self) -> std::result::Result<(), String> {
+        let classes = &self.classes;
         if classes.len() < 2 {
             return Err(format!(
                 "the class table has {} class(es); a segmenter needs at least 2 to separate",
                 classes.len()
             ));
         }
+        if classes.len() > 255 {
+            return Err(format!(
+                "the class table has {} classes; at most 255 fit in 8-bit label files",
+                classes.len()
+            ));
+        }
         let (mut ids, mut names, mut colours) = (HashSet::new(), HashSet::new(), HashSet::new());
-        for c in &classes {
+        for c in classes {
+            check_class_name(&c.name)?;
             if !ids.insert(c.id) {
                 return Err(format!("duplicate class id {}", c.id));
             }
@@ -121,7 +170,7 @@ impl ClassTable {
                 ));
             }
         }
-        Ok(ClassTable { classes })
+        Ok(())
     }
 
     pub fn len(&self) -> usize {
@@ -159,9 +208,14 @@ impl ClassTable {
         pal
     }
 
-    /// TOML text in the same format `load` reads.
+    /// TOML text in the same format `load` reads (with a comment marking it as grove's own
+    /// output, see `output_guard`).
     pub fn to_toml(&self) -> String {
-        let mut s = String::new();
+        let mut s = format!(
+            "# class table {} {}\n\n",
+            crate::output_guard::SIGNATURE,
+            env!("CARGO_PKG_VERSION")
+        );
         for c in &self.classes {
             s += &format!(
                 "[[class]]\nid = {}\nname = \"{}\"\ncolor = \"{}\"\n\n",
@@ -206,6 +260,23 @@ mod tests {
         assert!(ClassTable::parse(OK, 3)
             .unwrap_err()
             .contains("unlabelled value"));
+        for bad in [
+            "../../../escaped",
+            "a/b",
+            "a\\\\b",
+            "x\\ny",
+            "..",
+            ".hidden",
+            " pad",
+        ] {
+            let text = OK.replace("\"crop\"", &format!("\"{bad}\""));
+            let err = ClassTable::parse(&text, 255).unwrap_err();
+            assert!(err.contains("class name"), "{bad:?}: {err}");
+        }
+        let long = OK.replace("crop", &"c".repeat(65));
+        assert!(ClassTable::parse(&long, 255)
+            .unwrap_err()
+            .contains("longer than 64"));
         let one = "[[class]]\nid = 0\nname = \"a\"\ncolor = \"#000000\"\n";
         assert!(ClassTable::parse(one, 255)
             .unwrap_err()

@@ -25,6 +25,8 @@ pub struct ImageEntry {
 #[derive(Clone, Debug)]
 pub struct Dataset {
     pub root: PathBuf,
+    /// `root/classes.toml`.
+    pub table_path: PathBuf,
     pub classes: ClassTable,
     pub entries: Vec<ImageEntry>,
     pub label_options: LabelOptions,
@@ -33,17 +35,37 @@ pub struct Dataset {
 }
 
 /// Image files in `dir` (not recursive), sorted by file name so runs are reproducible.
+/// grove's own temporary files are never listed; a name that is not valid UTF-8 is refused
+/// (rather than dropped or renamed), because names pair images with labels and name outputs.
 pub fn list_images(dir: &Path) -> Result<Vec<PathBuf>> {
     let rd = std::fs::read_dir(dir).map_err(|e| GroveError::io(dir, e))?;
     let mut files = Vec::new();
     for entry in rd {
         let path = entry.map_err(|e| GroveError::io(dir, e))?.path();
+        let Some(name) = path.file_name() else {
+            continue;
+        };
+        if crate::atomic_write::is_temp_name(name) {
+            continue;
+        }
         if path.is_file() && has_image_extension(&path) {
+            check_utf8_name(&path)?;
             files.push(path);
         }
     }
     files.sort();
     Ok(files)
+}
+
+/// Refuses a file name that is not valid UTF-8, with the name as far as it can be shown.
+pub fn check_utf8_name(path: &Path) -> Result<()> {
+    if path.file_name().is_some_and(|n| n.to_str().is_none()) {
+        return Err(GroveError::input(
+            path,
+            "file name is not valid UTF-8 (shown with \u{FFFD} for the undecodable bytes); rename the file (and its label file) with a UTF-8 name",
+        ));
+    }
+    Ok(())
 }
 
 /// The file stem as UTF-8 (lossy: names are for display and pairing).
@@ -64,6 +86,12 @@ impl Dataset {
             ));
         }
         let table_path = root.join("classes.toml");
+        if table_path.is_dir() {
+            return Err(GroveError::input(
+                &table_path,
+                "is a folder; the class table must be a TOML file with one [[class]] entry (id, name, color) per class",
+            ));
+        }
         if !table_path.is_file() {
             return Err(GroveError::input(
                 &table_path,
@@ -119,11 +147,21 @@ impl Dataset {
         }
         Ok(Dataset {
             root: root.to_path_buf(),
+            table_path,
             classes,
             entries,
             label_options,
             warnings,
         })
+    }
+
+    /// Every file of the dataset grove reads (class table, images, label files): what an
+    /// output must never replace.
+    pub fn files(&self) -> impl Iterator<Item = &Path> {
+        self.entries
+            .iter()
+            .flat_map(|e| std::iter::once(e.image.as_path()).chain(e.labels.as_deref()))
+            .chain(std::iter::once(self.table_path.as_path()))
     }
 
     /// Entries that have a label file.

@@ -12,6 +12,8 @@ use crate::segmenter::{Probabilities, Segmenter};
 /// The scores as written by `--json` and by the demo's `metrics.json`.
 #[derive(Clone, Debug, Serialize)]
 pub struct MetricsReport {
+    /// "written by grove VERSION": marks the file as grove's own (see `output_guard`).
+    pub generator: String,
     pub pixel_accuracy: f64,
     pub mean_iou: f64,
     pub mean_class_accuracy: f64,
@@ -43,6 +45,11 @@ impl MetricsReport {
         };
         let k = classes.len();
         MetricsReport {
+            generator: format!(
+                "{} {}",
+                crate::output_guard::SIGNATURE,
+                env!("CARGO_PKG_VERSION")
+            ),
             pixel_accuracy: cm.pixel_accuracy().unwrap_or(0.0),
             mean_iou: cm.mean_iou().unwrap_or(0.0),
             mean_class_accuracy: cm.mean_class_accuracy().unwrap_or(0.0),

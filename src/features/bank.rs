@@ -24,6 +24,9 @@ use crate::plane::Plane;
 /// responses are nearly constant over a typical image and cost grows linearly with σ.
 pub const MAX_SCALE: f32 = 64.0;
 
+/// Most scales in one bank (each adds 10–12 feature planes per image).
+pub const MAX_SCALES: usize = 16;
+
 /// Channel letters used in feature names, in Lab plane order.
 const CHANNELS: [char; 3] = ['L', 'a', 'b'];
 
@@ -54,6 +57,12 @@ impl FilterBankConfig {
             return Err(GroveError::Config(
                 "filter bank: `scales` is empty; give at least one Gaussian scale, e.g. [1, 2, 4, 8]".into(),
             ));
+        }
+        if self.scales.len() > MAX_SCALES {
+            return Err(GroveError::Config(format!(
+                "filter bank: {} scales given; at most {MAX_SCALES}",
+                self.scales.len()
+            )));
         }
         for (i, &s) in self.scales.iter().enumerate() {
             if !(s.is_finite() && s > 0.0 && s <= MAX_SCALE) {

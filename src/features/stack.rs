@@ -48,13 +48,20 @@ impl Default for FeatureConfig {
     }
 }
 
+/// Largest texton dictionary (k-means cost grows with k; 32 is the default).
+pub const MAX_TEXTONS: usize = 1024;
+/// Largest texton histogram window side (the histograms' own limit).
+pub const MAX_TEXTON_WINDOW: usize = crate::features::textons::MAX_WINDOW;
+/// Most pixels per image fed to k-means.
+pub const MAX_TEXTON_SAMPLES: usize = 1_000_000;
+
 impl FeatureConfig {
     pub fn validate(&self) -> Result<()> {
         self.bank.validate()?;
         if self.textons > 0 {
-            if self.textons > u16::MAX as usize {
+            if self.textons > MAX_TEXTONS {
                 return Err(GroveError::Config(format!(
-                    "{} textons is too many",
+                    "{} textons is too many (at most {MAX_TEXTONS})",
                     self.textons
                 )));
             }
@@ -63,15 +70,19 @@ impl FeatureConfig {
                     "give one or two texton window sizes".into(),
                 ));
             }
-            if let Some(w) = self.texton_windows.iter().find(|&&w| w % 2 == 0 || w == 0) {
+            if let Some(w) = self
+                .texton_windows
+                .iter()
+                .find(|&&w| w % 2 == 0 || w == 0 || w > MAX_TEXTON_WINDOW)
+            {
                 return Err(GroveError::Config(format!(
-                    "texton window {w} must be odd and positive"
+                    "texton window {w} must be an odd number between 1 and {MAX_TEXTON_WINDOW}"
                 )));
             }
-            if self.texton_samples_per_image == 0 {
-                return Err(GroveError::Config(
-                    "texton samples per image must be positive".into(),
-                ));
+            if !(1..=MAX_TEXTON_SAMPLES).contains(&self.texton_samples_per_image) {
+                return Err(GroveError::Config(format!(
+                    "texton samples per image must be between 1 and {MAX_TEXTON_SAMPLES}"
+                )));
             }
         }
         Ok(())

@@ -19,6 +19,12 @@ use crate::error::{GroveError, Result};
 /// blocks of ~4k rows.
 const PREDICT_BLOCK_ROWS: usize = 4096;
 
+/// Upper bounds of the settings (stated in `grove train --help`): far beyond useful values,
+/// low enough that a typo fails at once instead of running for hours or exhausting memory.
+pub const MAX_TREES: usize = 4096;
+pub const MAX_DEPTH: usize = 64;
+pub const MAX_MIN_LEAF: usize = 1_000_000;
+
 /// Settings of a random forest. `Default` gives 32 trees, depth ≤ 20, ≥ 2 samples per leaf
 /// (a common-practice rule of thumb that trims noise-fitting leaves at little cost), √F
 /// features per split (Breiman 2001's suggestion for classification), 64 bins, bootstrap on.
@@ -59,21 +65,18 @@ impl Default for ForestConfig {
 impl ForestConfig {
     /// Checks the ranges documented on each field (those that do not depend on the data).
     pub fn validate(&self) -> Result<()> {
-        if self.n_trees == 0 {
-            return Err(GroveError::Config(
-                "forest n_trees must be at least 1".into(),
-            ));
-        }
-        if self.max_depth == 0 {
-            return Err(GroveError::Config(
-                "forest max_depth must be at least 1".into(),
-            ));
-        }
-        if self.min_samples_leaf == 0 {
-            return Err(GroveError::Config(
-                "forest min_samples_leaf must be at least 1".into(),
-            ));
-        }
+        let bound = |what: &str, v: usize, max: usize| {
+            if (1..=max).contains(&v) {
+                Ok(())
+            } else {
+                Err(GroveError::Config(format!(
+                    "forest {what} = {v} must be between 1 and {max}"
+                )))
+            }
+        };
+        bound("trees", self.n_trees, MAX_TREES)?;
+        bound("max depth", self.max_depth, MAX_DEPTH)?;
+        bound("min samples per leaf", self.min_samples_leaf, MAX_MIN_LEAF)?;
         if self.max_features == Some(0) {
             return Err(GroveError::Config(
                 "forest max_features must be at least 1 (or unset for √F)".into(),

@@ -39,6 +39,30 @@ impl RasterImage {
         }
     }
 
+    /// A copy of the pixels in `rect` (which must lie inside the image).
+    pub fn crop(&self, rect: &crate::features::stack::Rect) -> RasterImage {
+        assert!(
+            rect.x + rect.width <= self.width && rect.y + rect.height <= self.height,
+            "crop rectangle inside the image"
+        );
+        let channels = self
+            .channels
+            .iter()
+            .map(|p| {
+                let mut data = Vec::with_capacity(rect.area());
+                for y in rect.y..rect.y + rect.height {
+                    data.extend_from_slice(&p.row(y)[rect.x..rect.x + rect.width]);
+                }
+                Plane::from_vec(rect.width, rect.height, data)
+            })
+            .collect();
+        RasterImage {
+            width: rect.width,
+            height: rect.height,
+            channels,
+        }
+    }
+
     /// 8-bit RGB bytes (grey replicated), the base layer of overlays.
     pub fn to_rgb8(&self) -> Vec<u8> {
         let n = self.width * self.height;

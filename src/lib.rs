@@ -20,6 +20,7 @@ pub mod plane;
 pub mod progress;
 pub mod segmenter;
 pub mod smooth;
+pub mod tiling;
 
 pub use error::{GroveError, Result};
 pub use plane::Plane;

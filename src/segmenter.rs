@@ -13,7 +13,7 @@ use crate::dataset::{ClassTable, Dataset, ImageEntry, UNLABELLED};
 use crate::error::{GroveError, Result};
 use crate::features::bank::filter_bank_names;
 use crate::features::kmeans::KMeansConfig;
-use crate::features::stack::{gather_rows, FeatureConfig, FeatureExtractor};
+use crate::features::stack::{gather_rows, FeatureConfig, FeatureExtractor, Placement, Rect};
 use crate::features::textons::TextonDictionary;
 use crate::forest::{argmax, ForestConfig, RandomForest};
 use crate::imageio::{read_image, RasterImage};
@@ -315,24 +315,31 @@ fn creation_time() -> u64 {
 const BLOCK: usize = 4096;
 
 impl Segmenter {
-    /// Per-pixel class probabilities for one image.
+    /// Per-pixel class probabilities for one image, computed in tiles of
+    /// [`crate::tiling::DEFAULT_TILE`] so the feature stack of a large image never exists
+    /// whole; bit-identical to any other tile size ([`crate::tiling::predict_tiled`]).
     pub fn predict_proba(&self, image: &RasterImage) -> Probabilities {
-        let stack = self.features.features(image);
+        crate::tiling::predict_tiled(self, image, crate::tiling::DEFAULT_TILE)
+    }
+
+    /// Class probabilities of the pixels `core` (in `window`'s coordinates) of `window`, the
+    /// excerpt `at.window` of a larger image. Exact where `core` keeps
+    /// [`FeatureExtractor::halo`] pixels from every window edge that is not an image edge.
+    pub fn predict_core(&self, window: &RasterImage, at: &Placement, core: &Rect) -> Probabilities {
+        let stack = self.features.features_at(window, at);
         let (f, k) = (stack.n_features(), self.classes.len());
-        let n = stack.width * stack.height;
-        let mut data = vec![0.0f32; n * k];
+        let mut data = vec![0.0f32; core.area() * k];
         data.par_chunks_mut(BLOCK * k)
             .enumerate()
             .for_each(|(b, out)| {
-                let start = b * BLOCK;
                 let rows = out.len() / k;
                 let mut buf = vec![0.0f32; rows * f];
-                stack.rows_into(start, &mut buf);
+                stack.rect_rows_into(core, b * BLOCK, &mut buf);
                 self.forest.predict_proba_into(&buf, out);
             });
         Probabilities {
-            width: stack.width,
-            height: stack.height,
+            width: core.width,
+            height: core.height,
             n_classes: k,
             data,
         }

@@ -48,6 +48,10 @@ pub struct ApplyArgs {
     /// earlier outputs are always replaced; inputs never are).
     #[arg(long)]
     pub force: bool,
+    /// Predict in tiles of N × N pixels (plus a halo), bounding memory by the tile size;
+    /// 0 = the whole image at once. The result does not depend on it.
+    #[arg(long, value_name = "N", default_value_t = crate::tiling::DEFAULT_TILE)]
+    pub tile: usize,
 }
 
 /// Expands files and folders into image paths, keeping the given order.
@@ -134,6 +138,7 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
             args.opacity
         )));
     }
+    crate::tiling::check_tile(args.tile)?;
     let model = crate::model::load(&args.model)?;
     let images = collect_inputs(&args.inputs)?;
     let roi = args.roi.as_deref().map(RoiMasks::open).transpose()?;
@@ -193,7 +198,7 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
                     )
                 });
             }
-            let probs = model.predict_proba(&img);
+            let probs = crate::tiling::predict_tiled(&model, &img, args.tile);
             pixels += img.width * img.height;
             if tx.send((stem_of(path), img, probs)).is_err() {
                 break; // the writer stopped on an error, which join reports

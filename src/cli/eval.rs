@@ -6,7 +6,7 @@ use clap::Args;
 
 use crate::cli::{open_dataset, LabelArgs};
 use crate::error::{GroveError, Result};
-use crate::eval::score::{evaluate, MetricsReport};
+use crate::eval::score::{evaluate_tiled, MetricsReport};
 use crate::progress::Progress;
 
 #[derive(Args, Debug)]
@@ -21,11 +21,16 @@ pub struct EvalArgs {
     /// Replace an existing file at --json even if grove did not write it.
     #[arg(long)]
     pub force: bool,
+    /// Predict in tiles of N × N pixels (plus a halo), bounding memory; 0 = whole images at
+    /// once. Scores do not depend on it.
+    #[arg(long, value_name = "N", default_value_t = crate::tiling::DEFAULT_TILE)]
+    pub tile: usize,
     #[command(flatten)]
     pub labels: LabelArgs,
 }
 
 pub fn run(args: EvalArgs, progress: Progress) -> Result<()> {
+    crate::tiling::check_tile(args.tile)?;
     let model = crate::model::load(&args.model)?;
     let ds = open_dataset(&args.data, &args.labels)?;
     if let Some(json) = &args.json {
@@ -69,7 +74,7 @@ pub fn run(args: EvalArgs, progress: Progress) -> Result<()> {
     if overlap > 0 {
         eprintln!("warning: {overlap} of these images share a name with training images; scores on training images are optimistic");
     }
-    let cm = evaluate(&model, &ds, &entries, progress)?;
+    let cm = evaluate_tiled(&model, &ds, &entries, args.tile, progress, |_, _, _| Ok(()))?;
     let names = entries.iter().map(|e| e.stem.clone()).collect();
     let report = MetricsReport::new(&cm, &model.classes, names);
     print!("{}", report.to_table());

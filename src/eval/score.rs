@@ -8,6 +8,7 @@ use crate::eval::confusion::ConfusionMatrix;
 use crate::imageio::RasterImage;
 use crate::progress::Progress;
 use crate::segmenter::{Probabilities, Segmenter};
+use crate::tiling::{predict_tiled, DEFAULT_TILE};
 
 /// The scores as written by `--json` and by the demo's `metrics.json`.
 #[derive(Clone, Debug, Serialize)]
@@ -162,6 +163,22 @@ pub fn evaluate_with<F>(
     dataset: &Dataset,
     entries: &[&ImageEntry],
     progress: Progress,
+    visit: F,
+) -> Result<ConfusionMatrix>
+where
+    F: FnMut(&ImageEntry, &RasterImage, &Probabilities) -> Result<()>,
+{
+    evaluate_tiled(model, dataset, entries, DEFAULT_TILE, progress, visit)
+}
+
+/// As [`evaluate_with`], predicting in tiles of `tile` pixels (0 = whole images); the scores
+/// do not depend on it (tiled prediction is bit-identical), only memory and speed do.
+pub fn evaluate_tiled<F>(
+    model: &Segmenter,
+    dataset: &Dataset,
+    entries: &[&ImageEntry],
+    tile: usize,
+    progress: Progress,
     mut visit: F,
 ) -> Result<ConfusionMatrix>
 where
@@ -171,7 +188,7 @@ where
     let bar = progress.stage("scoring", entries.len() as u64);
     for e in entries {
         let (img, labels) = dataset.load_pair(e)?;
-        let probs = model.predict_proba(&img);
+        let probs = predict_tiled(model, &img, tile);
         cm.add(&labels.indices, &probs.argmax(), Some(UNLABELLED as u32))?;
         visit(e, &img, &probs)?;
         bar.inc(1);

@@ -89,7 +89,7 @@ impl HalfKernels {
             "Gaussian sigma must be positive and finite (validated by the caller)"
         );
         let s = f64::from(sigma);
-        let radius = (TRUNCATE * s + 0.5) as usize;
+        let radius = kernel_radius(sigma);
         let s2 = s * s;
         let phi: Vec<f64> = (0..=radius)
             .map(|j| (-0.5 / s2 * (j * j) as f64).exp())
@@ -110,6 +110,12 @@ impl HalfKernels {
             d2,
         }
     }
+}
+
+/// Half-width `r = ⌊4σ + 0.5⌋` of the kernels at scale `sigma`: an output pixel depends on the
+/// input pixels at most `r` rows and `r` columns away (tiling sizes its halo from this).
+pub fn kernel_radius(sigma: f32) -> usize {
+    (TRUNCATE * f64::from(sigma) + 0.5) as usize
 }
 
 /// Index of sample `i` in a line of length `n` under scipy's `reflect` extension

@@ -10,6 +10,7 @@ use serde::{Deserialize, Serialize};
 use crate::error::{GroveError, Result};
 use crate::features::bank::{filter_bank, filter_bank_names, FilterBankConfig};
 use crate::features::color::lab_planes;
+use crate::features::gaussian::kernel_radius;
 use crate::features::textons::{texton_histograms, TextonDictionary};
 use crate::imageio::RasterImage;
 use crate::plane::Plane;
@@ -108,12 +109,75 @@ impl FeatureStack {
 
     /// Pixel-major rows for pixels `start..start + out.len() / F`.
     pub fn rows_into(&self, start: usize, out: &mut [f32]) {
+        let all = Rect::whole(self.width, self.height);
+        self.rect_rows_into(&all, start, out);
+    }
+
+    /// Pixel-major rows for pixels `start..start + out.len() / F` of the sub-rectangle `rect`
+    /// (counted row-major within `rect`, in stack coordinates): a tile's core inside its
+    /// window with halo.
+    pub fn rect_rows_into(&self, rect: &Rect, start: usize, out: &mut [f32]) {
         let f = self.planes.len();
         let n = out.len() / f;
-        for (j, plane) in self.planes.iter().enumerate() {
-            for (i, &v) in plane.data[start..start + n].iter().enumerate() {
-                out[i * f + j] = v;
+        let mut i = 0;
+        while i < n {
+            // One contiguous run of a row of `rect` at a time.
+            let (cx, cy) = ((start + i) % rect.width, (start + i) / rect.width);
+            let run = (rect.width - cx).min(n - i);
+            let from = (rect.y + cy) * self.width + rect.x + cx;
+            for (j, plane) in self.planes.iter().enumerate() {
+                for (r, &v) in plane.data[from..from + run].iter().enumerate() {
+                    out[(i + r) * f + j] = v;
+                }
             }
+            i += run;
+        }
+    }
+}
+
+/// A rectangle of pixels: columns `x..x + width`, rows `y..y + height`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Rect {
+    pub x: usize,
+    pub y: usize,
+    pub width: usize,
+    pub height: usize,
+}
+
+impl Rect {
+    /// All of a `width × height` image.
+    pub fn whole(width: usize, height: usize) -> Rect {
+        Rect {
+            x: 0,
+            y: 0,
+            width,
+            height,
+        }
+    }
+
+    pub fn area(&self) -> usize {
+        self.width * self.height
+    }
+}
+
+/// Where the pixels handed to [`FeatureExtractor::features_at`] sit in the whole image, so
+/// features that depend on the position are computed in whole-image coordinates.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Placement {
+    /// Size of the whole image.
+    pub image_width: usize,
+    pub image_height: usize,
+    /// The excerpt within it.
+    pub window: Rect,
+}
+
+impl Placement {
+    /// An image on its own.
+    pub fn whole(width: usize, height: usize) -> Placement {
+        Placement {
+            image_width: width,
+            image_height: height,
+            window: Rect::whole(width, height),
         }
     }
 }
@@ -145,12 +209,20 @@ impl FeatureExtractor {
         filter_bank(&self.lab(image), &self.config.bank)
     }
 
-    /// Appends position and texton histograms to the responses.
+    /// Appends position and texton histograms to the responses of a whole image.
     pub fn stack(&self, responses: Vec<Plane>) -> FeatureStack {
         let (w, h) = (responses[0].width, responses[0].height);
+        self.stack_at(responses, &Placement::whole(w, h))
+    }
+
+    /// Appends position (in whole-image coordinates) and texton histograms to the responses
+    /// of the excerpt `at.window` of an image.
+    pub fn stack_at(&self, responses: Vec<Plane>, at: &Placement) -> FeatureStack {
+        let (w, h) = (responses[0].width, responses[0].height);
+        debug_assert_eq!((w, h), (at.window.width, at.window.height));
         let mut planes = responses;
         if self.config.position {
-            planes.extend(position_planes(w, h));
+            planes.extend(position_planes_at(at));
         }
         if let Some(dict) = &self.textons {
             let map = dict.assign_planes(
@@ -172,6 +244,34 @@ impl FeatureExtractor {
     /// Responses + stack in one call.
     pub fn features(&self, image: &RasterImage) -> FeatureStack {
         self.stack(self.responses(image))
+    }
+
+    /// Features of `window`, the excerpt `at.window` of a larger image. They equal the
+    /// whole image's features exactly at every pixel at least [`FeatureExtractor::halo`]
+    /// pixels inside each edge of the window that is not an edge of the image (the filters
+    /// and histograms reflect at the window's edges, which is right only where the window
+    /// edge is the image's).
+    pub fn features_at(&self, window: &RasterImage, at: &Placement) -> FeatureStack {
+        self.stack_at(self.responses(window), at)
+    }
+
+    /// How far (in pixels, along each axis) the features of a pixel reach: the widest
+    /// Gaussian kernel radius (4σ truncation) plus half the widest texton window, because
+    /// a histogram counts the textons of pixels whose textons depend on filter responses.
+    pub fn halo(&self) -> usize {
+        let filters = self
+            .config
+            .bank
+            .scales
+            .iter()
+            .map(|&s| kernel_radius(s))
+            .max()
+            .unwrap_or(0);
+        let windows = match self.textons {
+            Some(_) => self.config.texton_windows.iter().max().map_or(0, |w| w / 2),
+            None => 0,
+        };
+        filters + windows
     }
 
     /// Feature names in stack order.
@@ -210,9 +310,20 @@ pub const POSITION_NAMES: [&str; 2] = ["pos_x", "pos_y"];
 
 /// x / (w - 1) and y / (h - 1), so both run over [0, 1] whatever the image size.
 pub fn position_planes(w: usize, h: usize) -> [Plane; 2] {
-    let sx = 1.0 / (w.max(2) - 1) as f32;
-    let sy = 1.0 / (h.max(2) - 1) as f32;
-    let xs: Vec<f32> = (0..w * h).map(|i| (i % w) as f32 * sx).collect();
-    let ys: Vec<f32> = (0..w * h).map(|i| (i / w) as f32 * sy).collect();
+    position_planes_at(&Placement::whole(w, h))
+}
+
+/// [`position_planes`] of the whole image, over the excerpt `at.window` only.
+pub fn position_planes_at(at: &Placement) -> [Plane; 2] {
+    let sx = 1.0 / (at.image_width.max(2) - 1) as f32;
+    let sy = 1.0 / (at.image_height.max(2) - 1) as f32;
+    let Rect {
+        x,
+        y,
+        width: w,
+        height: h,
+    } = at.window;
+    let xs: Vec<f32> = (0..w * h).map(|i| (x + i % w) as f32 * sx).collect();
+    let ys: Vec<f32> = (0..w * h).map(|i| (y + i / w) as f32 * sy).collect();
     [Plane::from_vec(w, h, xs), Plane::from_vec(w, h, ys)]
 }

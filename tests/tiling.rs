@@ -16,6 +16,8 @@ use grove::tiling::predict_tiled;
 fn small_config() -> TrainConfig {
     TrainConfig {
         features: FeatureConfig {
+            // Position features in whole-image coordinates are part of what is checked.
+            position: true,
             textons: 8,
             // Two windows: the halo must follow the wider one.
             texton_windows: vec![9, 15],

@@ -5,12 +5,13 @@
 //! sees the same range. Outputs are written to a temporary name in the target folder and
 //! renamed, so an interrupted run never leaves half a file behind.
 
-use std::io::{BufReader, Cursor};
+use std::io::Cursor;
 use std::path::{Path, PathBuf};
 
 use image::DynamicImage;
 
 use crate::error::{GroveError, Result};
+use crate::image_check::{check_jpeg_complete, check_size, describe_decode_error, size_problem};
 use crate::plane::Plane;
 
 /// An input image as sRGB-encoded planes in [0, 1]: one plane (grey) or three (R, G, B).
@@ -88,13 +89,62 @@ pub fn has_image_extension(path: &Path) -> bool {
         .unwrap_or(false)
 }
 
-fn decode(path: &Path) -> Result<DynamicImage> {
-    let file = std::fs::File::open(path).map_err(|e| GroveError::io(path, e))?;
-    image::ImageReader::new(BufReader::new(file))
+/// Reads an input file's bytes after checking that it is a regular file (not a folder or a
+/// device such as `/dev/zero`, which would be read forever).
+pub fn read_input_file(path: &Path) -> Result<Vec<u8>> {
+    let meta = std::fs::metadata(path).map_err(|e| GroveError::io(path, e))?;
+    if meta.is_dir() {
+        return Err(GroveError::input(
+            path,
+            "is a folder, not an image file (are the arguments in the right order?)",
+        ));
+    }
+    if !meta.is_file() {
+        return Err(GroveError::input(
+            path,
+            "is not a regular file (a device or pipe?); pass an image file",
+        ));
+    }
+    std::fs::read(path).map_err(|e| GroveError::io(path, e))
+}
+
+/// A decoder for the image in `bytes`, its format recognised from the content.
+fn decoder_for<'a>(
+    path: &Path,
+    bytes: &'a [u8],
+) -> Result<(image::ImageFormat, impl image::ImageDecoder + 'a)> {
+    let reader = image::ImageReader::new(Cursor::new(bytes))
         .with_guessed_format()
-        .map_err(|e| GroveError::io(path, e))?
-        .decode()
-        .map_err(|e| GroveError::input(path, format!("cannot decode image: {e}")))
+        .map_err(|e| GroveError::io(path, e))?;
+    let Some(format) = reader.format() else {
+        return Err(GroveError::input(
+            path,
+            if bytes.is_empty() {
+                "the file is empty (0 bytes)"
+            } else {
+                "not a PNG, JPEG or TIFF image (its content is not recognised; is the file misnamed or damaged?)"
+            },
+        ));
+    };
+    let decoder = reader
+        .into_decoder()
+        .map_err(|e| GroveError::input(path, describe_decode_error(&e, bytes.len())))?;
+    Ok((format, decoder))
+}
+
+/// Decodes after checking the header against the size limit and, for JPEG, that the file is
+/// complete (see `image_check`).
+fn decode(path: &Path) -> Result<DynamicImage> {
+    use image::ImageDecoder;
+    let bytes = read_input_file(path)?;
+    let (format, decoder) = decoder_for(path, &bytes)?;
+    let (w, h) = decoder.dimensions();
+    check_size(path, w as u64, h as u64)?;
+    if format == image::ImageFormat::Jpeg {
+        check_jpeg_complete(path, &bytes)?;
+    }
+    DynamicImage::from_decoder(decoder)
+        .map_err(|e| GroveError::input(path, describe_decode_error(&e, bytes.len())))
 }
 
 /// What an image file's header says, read without decoding the pixels.
@@ -110,13 +160,10 @@ pub struct ImageHeader {
 /// colour mode before any pixel is decoded).
 pub fn probe_image(path: &Path) -> Result<ImageHeader> {
     use image::ImageDecoder;
-    let file = std::fs::File::open(path).map_err(|e| GroveError::io(path, e))?;
-    let decoder = image::ImageReader::new(BufReader::new(file))
-        .with_guessed_format()
-        .map_err(|e| GroveError::io(path, e))?
-        .into_decoder()
-        .map_err(|e| GroveError::input(path, format!("cannot decode image: {e}")))?;
+    let bytes = read_input_file(path)?;
+    let (_, decoder) = decoder_for(path, &bytes)?;
     let (w, h) = decoder.dimensions();
+    check_size(path, w as u64, h as u64)?;
     Ok(ImageHeader {
         width: w as usize,
         height: h as usize,
@@ -134,8 +181,10 @@ pub fn read_image(path: &Path) -> Result<RasterImage> {
     use image::ColorType as C;
     let img = decode(path)?;
     let (w, h) = (img.width() as usize, img.height() as usize);
-    if w == 0 || h == 0 {
-        return Err(GroveError::input(path, "image has no pixels"));
+    if let Some(buf) = img.as_rgb32f() {
+        check_finite(path, buf.as_raw(), 3, w)?;
+    } else if let Some(buf) = img.as_rgba32f() {
+        check_finite(path, buf.as_raw(), 4, w)?;
     }
     let grey = is_grey_colour(img.color());
     let n_ch = if grey { 1 } else { 3 };
@@ -164,6 +213,23 @@ pub fn read_image(path: &Path) -> Result<RasterImage> {
     })
 }
 
+/// Float images may hold NaN or infinity, which no filter or tree can use.
+fn check_finite(path: &Path, raw: &[f32], stride: usize, width: usize) -> Result<()> {
+    if let Some(i) = raw.iter().position(|v| !v.is_finite()) {
+        let px = i / stride;
+        return Err(GroveError::input(
+            path,
+            format!(
+                "float image has a non-finite value ({}) at x={}, y={}; fix or mask it before segmenting",
+                raw[i],
+                px % width,
+                px / width
+            ),
+        ));
+    }
+    Ok(())
+}
+
 fn fill<T: Copy + Into<f32>>(planes: &mut [Plane], raw: &[T], stride: usize, scale: f32) {
     for (c, plane) in planes.iter_mut().enumerate() {
         for (dst, px) in plane.data.iter_mut().zip(raw.chunks_exact(stride)) {
@@ -190,16 +256,50 @@ pub struct LabelFile {
 /// Reads a label PNG without colour expansion: a palette-indexed PNG yields its indices
 /// (grove writes its own label maps that way, so they can be read back as labels).
 pub fn read_label_png(path: &Path) -> Result<LabelFile> {
+    let bytes = read_input_file(path)?;
+    decode_label_png(&bytes).map_err(|m| GroveError::input(path, m))
+}
+
+fn png_error(e: png::DecodingError, len: usize) -> String {
+    let text = e.to_string();
+    if len == 0 {
+        "the file is empty (0 bytes)".into()
+    } else if matches!(&e, png::DecodingError::IoError(io) if io.kind() == std::io::ErrorKind::UnexpectedEof)
+        || text.to_ascii_lowercase().contains("eof")
+    {
+        "label PNG is truncated: it ends before all of its pixel data".into()
+    } else {
+        format!("cannot decode label PNG: {text}")
+    }
+}
+
+/// Width and height from a label PNG's header, without decoding (so a label that does not
+/// match its image is refused before any allocation).
+pub fn probe_label_png(path: &Path) -> Result<(usize, usize)> {
+    let bytes = read_input_file(path)?;
+    let reader = png::Decoder::new(Cursor::new(&bytes))
+        .read_info()
+        .map_err(|e| GroveError::input(path, png_error(e, bytes.len())))?;
+    let info = reader.info();
+    Ok((info.width as usize, info.height as usize))
+}
+
+/// [`read_label_png`] on the file's bytes; the error is a message without the file name.
+pub fn decode_label_png(bytes: &[u8]) -> std::result::Result<LabelFile, String> {
     use png::ColorType as C;
-    let bytes = std::fs::read(path).map_err(|e| GroveError::io(path, e))?;
-    let bad =
-        |e: png::DecodingError| GroveError::input(path, format!("cannot decode label PNG: {e}"));
-    let mut decoder = png::Decoder::new(Cursor::new(&bytes));
+    let bad = |e: png::DecodingError| png_error(e, bytes.len());
+    let mut decoder = png::Decoder::new(Cursor::new(bytes));
     decoder.set_transformations(png::Transformations::IDENTITY);
     let mut reader = decoder.read_info().map_err(bad)?;
+    {
+        let info = reader.info();
+        if let Some(problem) = size_problem(info.width as u64, info.height as u64) {
+            return Err(problem);
+        }
+    }
     let size = reader
         .output_buffer_size()
-        .ok_or_else(|| GroveError::input(path, "label PNG is too large"))?;
+        .ok_or_else(|| "label PNG is too large".to_string())?;
     let mut buf = vec![0u8; size];
     let info = reader.next_frame(&mut buf).map_err(bad)?;
     let (w, h) = (info.width as usize, info.height as usize);
@@ -234,10 +334,10 @@ pub fn read_label_png(path: &Path) -> Result<LabelFile> {
     let pixels = match info.color_type {
         C::Grayscale | C::Indexed => {
             if depth == 16 && values.iter().any(|&v| too_wide(v)) {
-                return Err(GroveError::input(
-                    path,
-                    "16-bit label values above 255 are not supported (class ids are 0..254)",
-                ));
+                return Err(
+                    "16-bit label values above 255 are not supported (class ids are 0..254)"
+                        .into(),
+                );
             }
             LabelPixels::Values(values.into_iter().map(|v| v as u8).collect())
         }

@@ -12,6 +12,7 @@ pub mod error;
 pub mod eval;
 pub mod features;
 pub mod forest;
+pub mod image_check;
 pub mod imageio;
 pub mod model;
 pub mod output_guard;

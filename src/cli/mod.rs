@@ -18,6 +18,10 @@ pub struct Cli {
     /// Worker threads, 1–1024 (default: all cores).
     #[arg(long, global = true, value_name = "N", value_parser = clap::value_parser!(u16).range(1..=MAX_THREADS))]
     threads: Option<u16>,
+    /// Largest image accepted, in megapixels, 0.001–100000 (default: available memory / 450
+    /// bytes per pixel, at least 16). Images are checked by their header before decoding.
+    #[arg(long, global = true, value_name = "MP")]
+    max_megapixels: Option<f64>,
     /// No progress bars (they are also off when stderr is not a terminal).
     #[arg(long, short, global = true)]
     quiet: bool,
@@ -54,6 +58,13 @@ const MAX_THREADS: i64 = 1024;
 /// (input data 3, model file 4, output 5, internal 70), documented in the README.
 pub fn run() -> i32 {
     let cli = Cli::parse();
+    if let Some(mp) = cli.max_megapixels {
+        if !(0.001..=100_000.0).contains(&mp) {
+            eprintln!("error: --max-megapixels {mp} must be between 0.001 and 100000");
+            return ErrorKind::Usage.exit_code();
+        }
+        crate::image_check::set_max_pixels((mp * 1e6) as u64);
+    }
     if let Some(n) = cli.threads {
         if let Err(e) = rayon::ThreadPoolBuilder::new()
             .num_threads(n as usize)

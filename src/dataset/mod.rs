@@ -190,7 +190,17 @@ impl Dataset {
             .labels
             .as_ref()
             .ok_or_else(|| GroveError::input(&entry.image, "image has no label file"))?;
-        let labels = self.read_labels(label_path)?;
+        // Header first: a label that declares another size is refused before it is decoded.
+        let declared = crate::imageio::probe_label_png(label_path)?;
+        let labels = if declared == size {
+            self.read_labels(label_path)?
+        } else {
+            LabelMap {
+                width: declared.0,
+                height: declared.1,
+                indices: Vec::new(),
+            }
+        };
         if (labels.width, labels.height) != size {
             return Err(GroveError::input(
                 label_path,

@@ -335,8 +335,7 @@ pub fn decode_label_png(bytes: &[u8]) -> std::result::Result<LabelFile, String> 
         C::Grayscale | C::Indexed => {
             if depth == 16 && values.iter().any(|&v| too_wide(v)) {
                 return Err(
-                    "16-bit label values above 255 are not supported (class ids are 0..254)"
-                        .into(),
+                    "16-bit label values above 255 are not supported (class ids are 0..254)".into(),
                 );
             }
             LabelPixels::Values(values.into_iter().map(|v| v as u8).collect())

@@ -129,28 +129,45 @@ fn train_eval_apply_commands() {
     assert_eq!(stray, 0);
 }
 
-/// Same seed → identical model bytes whether training runs on 1 or 2 threads.
+/// Same seed → identical model bytes and identical predictions on 1, 2 and 8 threads.
 #[test]
-fn model_bytes_do_not_depend_on_thread_count() {
+fn model_bytes_and_outputs_do_not_depend_on_thread_count() {
     let t = tempfile::tempdir().unwrap();
     grove::demo::write_demo_dataset(t.path(), 0..3, 96, 11).unwrap();
     let ds = grove::dataset::Dataset::open(t.path(), Default::default()).unwrap();
     let mut cfg = grove::segmenter::TrainConfig::default();
     cfg.forest.n_trees = 6;
     cfg.features.textons = 8;
-    let bytes = |threads: usize| {
+    let image = grove::imageio::read_image(&ds.entries[0].image).unwrap();
+    let run = |threads: usize| {
         let pool = rayon::ThreadPoolBuilder::new()
             .num_threads(threads)
             .build()
             .unwrap();
-        let mut m = pool.install(|| cfg.fit(&ds, &ds.labelled(), Default::default()).unwrap());
-        m.provenance.created_unix = 0;
-        grove::model::to_bytes(&m)
+        pool.install(|| {
+            let mut m = cfg.fit(&ds, &ds.labelled(), Default::default()).unwrap();
+            m.provenance.created_unix = 0;
+            let probs: Vec<u32> = m
+                .predict_proba(&image)
+                .data
+                .iter()
+                .map(|p| p.to_bits())
+                .collect();
+            (grove::model::to_bytes(&m), probs)
+        })
     };
-    assert!(
-        bytes(1) == bytes(2),
-        "model bytes differ between 1 and 2 threads"
-    );
+    let one = run(1);
+    for threads in [2, 8] {
+        let other = run(threads);
+        assert!(
+            one.0 == other.0,
+            "model bytes differ between 1 and {threads} threads"
+        );
+        assert!(
+            one.1 == other.1,
+            "probabilities differ between 1 and {threads} threads"
+        );
+    }
 }
 
 /// Scribbles: colour-coded RGBA label files where only a few short strokes per class are

@@ -56,6 +56,7 @@ pub enum Segment {
 }
 
 /// A grid graph with its max-flow state.
+#[derive(Clone)]
 pub struct GridMaxFlow {
     width: usize,
     height: usize,

@@ -2,9 +2,11 @@
 //!
 //! The modules follow the data flow: `dataset` → `features` → `forest` → `segmenter`
 //! (fit / predict) → `smooth` (optional CRF) → `eval` and `outputs`; `model` is the file
-//! format; `demo` makes the built-in synthetic farm scenes; `cli` is the thin command layer.
+//! format; `demo` makes the built-in synthetic farm scenes; `batch` drives `apply` over many
+//! images and shards; `cli` is the thin command layer.
 
 pub mod atomic_write;
+pub mod batch;
 pub mod cli;
 pub mod dataset;
 pub mod demo;

@@ -135,6 +135,22 @@ fn read_bounded(path: &Path) -> std::result::Result<Vec<u8>, String> {
 
 /// Reads a model, with a clear error for anything that is not a usable grove model.
 pub fn load(path: &Path) -> Result<Segmenter> {
+    load_with_sha256(path).map(|(model, _)| model)
+}
+
+/// Reads a model and returns the SHA-256 of its file too: batch outputs record it, so a
+/// re-run can tell whether they were made by this very model file.
+pub fn load_with_sha256(path: &Path) -> Result<(Segmenter, String)> {
     let bytes = read_bounded(path).map_err(|message| GroveError::model(path, message))?;
-    from_bytes(&bytes).map_err(|message| GroveError::model(path, message))
+    let model = from_bytes(&bytes).map_err(|message| GroveError::model(path, message))?;
+    Ok((model, sha256_hex(&bytes)))
+}
+
+/// SHA-256 of `bytes` as lower-case hex (what `sha256sum` prints).
+pub fn sha256_hex(bytes: &[u8]) -> String {
+    use sha2::{Digest, Sha256};
+    Sha256::digest(bytes)
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect()
 }

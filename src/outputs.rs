@@ -12,8 +12,8 @@ use crate::error::Result;
 use crate::imageio::{output_path, write_grey_png, write_label_png, write_rgb_png, RasterImage};
 use crate::segmenter::Probabilities;
 
-/// Which optional outputs to write.
-#[derive(Clone, Copy, Debug)]
+/// Which optional outputs to write (serialised into batch resume records).
+#[derive(Clone, Copy, Debug, serde::Serialize)]
 pub struct OutputOptions {
     pub overlay: bool,
     pub confidence: bool,
@@ -97,7 +97,15 @@ impl OutputPaths {
     }
 }
 
-/// Writes the outputs for one image; returns the class index map it wrote.
+/// What [`write_outputs`] wrote for one image.
+pub struct WrittenOutputs {
+    /// Class index (not id) per pixel, the map the files show.
+    pub index: Vec<u8>,
+    /// Every file written.
+    pub files: Vec<PathBuf>,
+}
+
+/// Writes the outputs for one image.
 pub fn write_outputs(
     out_dir: &Path,
     stem: &str,
@@ -105,7 +113,7 @@ pub fn write_outputs(
     probs: &Probabilities,
     classes: &ClassTable,
     opts: &OutputOptions,
-) -> Result<Vec<u8>> {
+) -> Result<WrittenOutputs> {
     let (w, h) = (probs.width, probs.height);
     let index = probs.argmax();
     let ids: Vec<u8> = index
@@ -126,5 +134,8 @@ pub fn write_outputs(
         let p: Vec<u8> = probs.class_plane(c).data.into_iter().map(to_u8).collect();
         write_grey_png(path, w, h, &p)?;
     }
-    Ok(index)
+    Ok(WrittenOutputs {
+        index,
+        files: paths.all().into_iter().map(Path::to_path_buf).collect(),
+    })
 }

@@ -29,6 +29,24 @@ impl Progress {
         bar
     }
 
+    /// A bar over the images of a batch; the caller puts the throughput in its message
+    /// (`set_message`), the ETA comes from the images done so far.
+    pub fn images(&self, name: &str, total: u64) -> ProgressBar {
+        if !self.enabled {
+            return ProgressBar::hidden();
+        }
+        let bar = ProgressBar::with_draw_target(Some(total), ProgressDrawTarget::stderr());
+        bar.set_style(
+            ProgressStyle::with_template(
+                "{prefix:>12} [{bar:30}] {pos}/{len} images {msg} ETA {eta} ({elapsed})",
+            )
+            .expect("static template")
+            .progress_chars("=> "),
+        );
+        bar.set_prefix(name.to_string());
+        bar
+    }
+
     /// A spinner for a step whose length is unknown (forest training).
     pub fn spinner(&self, name: &str) -> ProgressBar {
         if !self.enabled {

@@ -6,7 +6,6 @@ use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
-use sha2::{Digest, Sha256};
 
 use crate::dataset::sample::{balanced_sample, uniform_sample};
 use crate::dataset::{ClassTable, Dataset, ImageEntry, UNLABELLED};
@@ -123,10 +122,7 @@ impl Probabilities {
 
 fn sha256_hex(path: &std::path::Path) -> Result<String> {
     let bytes = std::fs::read(path).map_err(|e| GroveError::io(path, e))?;
-    Ok(Sha256::digest(&bytes)
-        .iter()
-        .map(|b| format!("{b:02x}"))
-        .collect())
+    Ok(crate::model::sha256_hex(&bytes))
 }
 
 impl TrainConfig {

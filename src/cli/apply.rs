@@ -1,27 +1,29 @@
 //! `grove apply`.
 
-use std::path::{Path, PathBuf};
-use std::time::Instant;
+use std::io::Write;
+use std::path::PathBuf;
 
 use clap::Args;
+use serde::Serialize;
 
-use crate::dataset::{list_images, stem_of};
+use crate::batch::{list_inputs, BatchEvent, BatchJob, ImageRecord, Shard};
+use crate::dataset::stem_of;
 use crate::error::{GroveError, Result};
-use crate::eval::areas::{count_classes, AreaTable, PixelSize, RoiMasks};
-use crate::imageio::{has_image_extension, read_image, RasterImage};
-use crate::outputs::{write_outputs, OutputOptions, OutputPaths};
+use crate::eval::areas::{AreaTable, PixelSize, RoiMasks};
+use crate::outputs::{OutputOptions, OutputPaths};
 use crate::progress::Progress;
-use crate::segmenter::Probabilities;
 
 #[derive(Args, Debug)]
 pub struct ApplyArgs {
     /// Model file written by `grove train`.
     pub model: PathBuf,
-    /// Images, or folders of images (a dataset folder's images/ is used if present).
-    #[arg(required = true)]
+    /// Images, folders of images (a dataset folder's images/ is used if present), quoted
+    /// glob patterns ('flights/**/*.tif', expanded by grove) or @LIST files (one input per
+    /// line, relative to the list file's folder; # starts a comment).
+    #[arg(required = true, value_name = "INPUT")]
     pub inputs: Vec<PathBuf>,
-    /// Output folder (labels/, overlays/, confidence/, probabilities/ are created inside, and
-    /// areas.csv, areas.json and classes.toml).
+    /// Output folder (labels/, overlays/, confidence/, probabilities/, done/ are created
+    /// inside, and areas.csv, areas.json and classes.toml).
     #[arg(long, short, value_name = "DIR")]
     pub out: PathBuf,
     /// Also write the confidence map (winning class probability, 0–255): dark = unsure.
@@ -44,64 +46,64 @@ pub struct ApplyArgs {
     /// figures count only inside them, and fractions are of the ROI.
     #[arg(long, value_name = "DIR")]
     pub roi: Option<PathBuf>,
-    /// Replace existing files in --out even if grove did not write them (grove's own
-    /// earlier outputs are always replaced; inputs never are).
+    /// Process only shard K of N (0 <= K < N): the images whose name hashes to K. Run N
+    /// processes with K = 0..N-1 (a job array) to cover every image exactly once.
+    #[arg(long, value_name = "K/N")]
+    pub shard: Option<Shard>,
+    /// Redo every image, even those whose outputs are complete and made by this model, and
+    /// replace existing files in --out even if grove did not write them (inputs never are).
     #[arg(long)]
     pub force: bool,
     /// Predict in tiles of N × N pixels (plus a halo), bounding memory by the tile size;
     /// 0 = the whole image at once. The result does not depend on it.
     #[arg(long, value_name = "N", default_value_t = crate::tiling::DEFAULT_TILE)]
     pub tile: usize,
+    /// Print one JSON line per image on stdout (status done/skipped, image, outputs, pixels,
+    /// seconds spent in this run, shard); the summary goes to stderr.
+    #[arg(long)]
+    pub log_json: bool,
 }
 
-/// Expands files and folders into image paths, keeping the given order.
-pub fn collect_inputs(inputs: &[PathBuf]) -> Result<Vec<PathBuf>> {
-    let mut out = Vec::new();
-    for p in inputs {
-        if p.is_dir() {
-            let sub = p.join("images");
-            let dir: &Path = if sub.is_dir() { &sub } else { p };
-            let found = list_images(dir)?;
-            if found.is_empty() {
-                return Err(GroveError::input(
-                    dir,
-                    "no images (PNG, JPEG or TIFF) in this folder",
-                ));
-            }
-            out.extend(found);
-        } else if p.is_file() {
-            if !has_image_extension(p) {
-                return Err(GroveError::input(p, "not a PNG, JPEG or TIFF file"));
-            }
-            crate::dataset::check_utf8_name(p)?;
-            out.push(p.clone());
-        } else {
-            return Err(GroveError::input(p, "no such file or folder"));
-        }
-    }
-    let mut stems: Vec<(String, &PathBuf)> = out.iter().map(|p| (stem_of(p), p)).collect();
-    stems.sort();
-    for w in stems.windows(2) {
-        if w[0].0 == w[1].0 {
-            return Err(GroveError::input(
-                w[1].1,
-                format!(
-                    "same name as {}; outputs would overwrite each other",
-                    w[0].1.display()
-                ),
-            ));
-        }
-    }
-    Ok(out)
+/// One `--log-json` line.
+#[derive(Serialize)]
+struct LogLine<'a> {
+    /// "done" (made now) or "skipped" (complete from an earlier run with this model).
+    status: &'a str,
+    image: &'a str,
+    outputs: &'a [String],
+    pixels: u64,
+    seconds: f64,
+    shard: Option<&'a str>,
 }
 
-/// Every output path, checked before any image is read: none is an input, none replaces a
-/// file grove did not write (without --force), and no two images write the same file.
+/// `shard` is this run's (a skipped image may have been made under another split), and a
+/// skipped image took no time in this run.
+fn log_json(status: &str, rec: &ImageRecord, shard: Option<Shard>) {
+    let shard = shard.map(|s| s.to_string());
+    let line = LogLine {
+        status,
+        image: &rec.image,
+        outputs: &rec.outputs,
+        pixels: rec.pixels,
+        seconds: if status == "done" { rec.seconds } else { 0.0 },
+        shard: shard.as_deref(),
+    };
+    let mut out = std::io::stdout().lock();
+    // A closed pipe ends the process (SIGPIPE); other write errors are not worth a failure.
+    let _ = serde_json::to_writer(&mut out, &line);
+    let _ = writeln!(out);
+    let _ = out.flush();
+}
+
+/// Every output path of this run, checked before any image is read: none is an input, none
+/// replaces a file grove did not write (without --force), and no two images write the same
+/// file.
 fn check_outputs(
     args: &ApplyArgs,
     images: &[PathBuf],
     classes: &crate::dataset::ClassTable,
     opts: &OutputOptions,
+    records: &crate::batch::Records,
 ) -> Result<()> {
     let inputs = images
         .iter()
@@ -113,8 +115,10 @@ fn check_outputs(
     guard.check_file(&args.out.join("classes.toml"))?;
     let mut seen = std::collections::HashMap::new();
     for image in images {
-        let paths = OutputPaths::new(&args.out, &stem_of(image), classes, opts);
-        for p in paths.all() {
+        let stem = stem_of(image);
+        let paths = OutputPaths::new(&args.out, &stem, classes, opts);
+        let record = records.path(&stem);
+        for p in paths.all().into_iter().chain([record.as_path()]) {
             if let Some(prev) = seen.insert(p.to_path_buf(), image) {
                 return Err(GroveError::input(
                     image,
@@ -139,74 +143,73 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
         )));
     }
     crate::tiling::check_tile(args.tile)?;
-    let model = crate::model::load(&args.model)?;
-    let images = collect_inputs(&args.inputs)?;
+    let (model, model_sha256) = crate::model::load_with_sha256(&args.model)?;
+    let all = list_inputs(&args.inputs)?;
+    let n_all = all.len();
+    let images = match args.shard {
+        Some(s) => s.select(all),
+        None => all,
+    };
     let roi = args.roi.as_deref().map(RoiMasks::open).transpose()?;
     if let Some(r) = &roi {
         let stems: Vec<String> = images.iter().map(|p| stem_of(p)).collect();
         r.check_covers(stems.iter().map(String::as_str))?;
     }
     let mut areas = AreaTable::new(model.classes.names(), args.pixel_size.clone());
-    let opts = OutputOptions {
-        overlay: !args.no_overlay,
-        confidence: args.confidence,
-        probabilities: args.probabilities,
-        overlay_opacity: args.opacity,
+    let job = BatchJob {
+        model: &model,
+        model_sha256,
+        images,
+        out_dir: args.out.clone(),
+        options: OutputOptions {
+            overlay: !args.no_overlay,
+            confidence: args.confidence,
+            probabilities: args.probabilities,
+            overlay_opacity: args.opacity,
+        },
+        shard: args.shard,
+        force: args.force,
+        roi: roi.as_ref(),
+        tile: args.tile,
     };
-    check_outputs(&args, &images, &model.classes, &opts)?;
-    let t0 = Instant::now();
-    let bar = progress.stage("applying", images.len() as u64);
-    let mut pixels = 0usize;
-    let mut warned = false;
-    // Encoding the PNGs of one image overlaps the decoding and prediction of the next: PNG
-    // coding is single-threaded, prediction uses every core.
-    std::thread::scope(|scope| -> Result<()> {
-        let (tx, rx) = std::sync::mpsc::sync_channel::<(String, RasterImage, Probabilities)>(1);
-        let writer = scope.spawn(|| -> Result<()> {
-            for (stem, img, probs) in rx {
-                let index = write_outputs(&args.out, &stem, &img, &probs, &model.classes, &opts)?;
-                let mask = match &roi {
-                    Some(r) => Some(r.mask(&stem, img.width, img.height)?),
-                    None => None,
-                };
-                let counts = count_classes(&index, model.classes.len(), mask.as_deref());
-                areas.add_counts(&stem, &counts);
-                bar.inc(1);
-            }
-            Ok(())
-        });
-        let mut predicted = Ok(());
-        for path in &images {
-            let img = match read_image(path) {
-                Ok(img) => img,
-                Err(e) => {
-                    predicted = Err(e);
-                    break;
-                }
-            };
-            if !warned && img.is_grey() != (model.features.channels == 1) {
-                warned = true;
-                let (model_kind, image_kind) = if img.is_grey() {
-                    ("colour", "grey")
-                } else {
-                    ("grey", "colour")
-                };
-                bar.suspend(|| {
-                    eprintln!(
-                        "warning: {}: {image_kind} image, but the model was trained on {model_kind} images; results may be poor (train on images like the ones you apply to)",
-                        path.display()
-                    )
-                });
-            }
-            let probs = crate::tiling::predict_tiled(&model, &img, args.tile);
-            pixels += img.width * img.height;
-            if tx.send((stem_of(path), img, probs)).is_err() {
-                break; // the writer stopped on an error, which join reports
+    check_outputs(
+        &args,
+        &job.images,
+        &model.classes,
+        &job.options,
+        &job.records(),
+    )?;
+    if let Some(s) = args.shard {
+        eprintln!("shard {s}: {} of {n_all} images", job.images.len());
+    }
+    let bar = progress.images("applying", job.images.len() as u64);
+    let t0 = std::time::Instant::now();
+    let mut pixels = 0u64;
+    let summary = job.run(&mut areas, |event| match event {
+        BatchEvent::Skipping(recs) => {
+            bar.set_length((job.images.len() - recs.len()) as u64);
+            bar.suspend(|| {
+                eprintln!(
+                    "skipping {} image{} whose outputs in {} are complete and made by this model (--force redoes them)",
+                    recs.len(),
+                    if recs.len() == 1 { "" } else { "s" },
+                    args.out.display()
+                )
+            });
+            if args.log_json {
+                recs.iter().for_each(|r| log_json("skipped", r, args.shard));
             }
         }
-        drop(tx);
-        let written = writer.join().expect("the output writer does not panic");
-        predicted.and(written)
+        BatchEvent::Done(rec) => {
+            pixels += rec.pixels;
+            let rate = pixels as f64 / 1e6 / t0.elapsed().as_secs_f64().max(1e-9);
+            bar.set_message(format!("{rate:.2} MP/s"));
+            bar.inc(1);
+            if args.log_json {
+                bar.suspend(|| log_json("done", rec, args.shard));
+            }
+        }
+        BatchEvent::Warning(w) => bar.suspend(|| eprintln!("warning: {w}")),
     })?;
     bar.finish_and_clear();
     areas.write(&args.out)?;
@@ -216,13 +219,31 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
         &args.out.join("classes.toml"),
         model.classes.to_toml().as_bytes(),
     )?;
-    let secs = t0.elapsed().as_secs_f64();
-    println!(
-        "segmented {} image{} ({:.2} Mpx) in {secs:.1} s; label maps in {}",
-        images.len(),
-        if images.len() == 1 { "" } else { "s" },
-        pixels as f64 / 1e6,
-        args.out.join("labels").display()
-    );
+    let text = if summary.done == 0 {
+        format!(
+            "nothing to do: all {} images already done in {} (--force redoes them)",
+            summary.skipped,
+            args.out.display()
+        )
+    } else {
+        format!(
+            "segmented {} image{} ({:.2} Mpx, {:.2} Mpx/s) in {:.1} s{}; label maps in {}",
+            summary.done,
+            if summary.done == 1 { "" } else { "s" },
+            summary.pixels as f64 / 1e6,
+            summary.pixels as f64 / 1e6 / summary.seconds.max(1e-9),
+            summary.seconds,
+            match summary.skipped {
+                0 => String::new(),
+                n => format!(", {n} already done"),
+            },
+            args.out.join("labels").display()
+        )
+    };
+    if args.log_json {
+        eprintln!("{text}");
+    } else {
+        println!("{text}");
+    }
     Ok(())
 }

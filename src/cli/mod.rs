@@ -38,7 +38,7 @@ enum Command {
     Train(train::TrainArgs),
     /// Segment images with a trained model: label maps, overlays, confidence.
     #[command(
-        after_help = "Example:\n  grove apply fields.grove flight-07/ extra.tif --out maps/ --confidence"
+        after_help = "Examples:\n  grove apply fields.grove flight-07/ extra.tif --out maps/ --confidence\n  grove apply fields.grove 'flights/**/*.tif' --out maps/ --shard 3/8 --log-json   # one task of 8"
     )]
     Apply(apply::ApplyArgs),
     /// Score a model on a labelled dataset: accuracy, IoU per class, confusion matrix.

@@ -416,6 +416,11 @@ impl RoiMasks {
         })
     }
 
+    /// The folder the masks come from.
+    pub fn dir(&self) -> &Path {
+        &self.dir
+    }
+
     /// Fails, naming the first, when an image has no mask (checked before any work).
     pub fn check_covers<'a>(&self, stems: impl IntoIterator<Item = &'a str>) -> Result<()> {
         match stems.into_iter().find(|s| !self.by_stem.contains_key(*s)) {

@@ -1,0 +1,231 @@
+//! The batch driver of `apply`: skips images whose outputs are complete, predicts the
+//! others one after the other, writes their outputs and resume records, and counts the
+//! class areas of every image (from the records for the skipped ones).
+//!
+//! Encoding the PNGs of one image overlaps the decoding and prediction of the next: PNG
+//! coding is single-threaded, prediction uses every core.
+
+use std::collections::HashMap;
+use std::path::PathBuf;
+use std::sync::mpsc::sync_channel;
+use std::time::Instant;
+
+use crate::batch::record::{ImageRecord, Records};
+use crate::batch::shard::Shard;
+use crate::dataset::stem_of;
+use crate::error::Result;
+use crate::eval::areas::{count_classes, AreaTable, RoiMasks};
+use crate::imageio::{read_image, RasterImage};
+use crate::outputs::{write_outputs, OutputOptions};
+use crate::segmenter::{Probabilities, Segmenter};
+
+/// One run of `apply` over a list of images (already restricted to this shard).
+pub struct BatchJob<'a> {
+    pub model: &'a Segmenter,
+    /// SHA-256 of the model file, recorded beside the outputs.
+    pub model_sha256: String,
+    pub images: Vec<PathBuf>,
+    pub out_dir: PathBuf,
+    pub options: OutputOptions,
+    /// Recorded in the records and log lines when the run is one shard of several.
+    pub shard: Option<Shard>,
+    /// Redo every image even when its outputs are complete.
+    pub force: bool,
+    /// Count areas only inside these masks.
+    pub roi: Option<&'a RoiMasks>,
+    /// Tile side for prediction (`tiling::predict_tiled`; 0 = whole image).
+    pub tile: usize,
+}
+
+/// What the driver reports while it runs (for progress bars and `--log-json`).
+#[derive(Debug)]
+pub enum BatchEvent<'a> {
+    /// These images already have complete outputs from the same model; not redone.
+    Skipping(&'a [ImageRecord]),
+    /// An image's outputs and record are written.
+    Done(&'a ImageRecord),
+    /// Something the user should know that does not stop the run.
+    Warning(String),
+}
+
+/// Totals of one run.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct BatchSummary {
+    pub done: usize,
+    pub skipped: usize,
+    /// Pixels of the images done (not of the skipped ones).
+    pub pixels: u64,
+    pub seconds: f64,
+}
+
+enum Work {
+    Warning(String),
+    Image {
+        path: PathBuf,
+        image: RasterImage,
+        probs: Probabilities,
+        started: Instant,
+    },
+}
+
+impl BatchJob<'_> {
+    /// The resume records of this job's output folder, model and settings.
+    pub fn records(&self) -> Records {
+        // What makes the outputs and counts differ: the maps asked for and the ROI folder
+        // (masks edited in place are not noticed: --force).
+        let options = serde_json::json!({
+            "outputs": self.options,
+            "roi": self.roi.map(|r| r.dir().display().to_string()),
+        });
+        Records::new(&self.out_dir, &self.model_sha256, options)
+    }
+
+    /// Splits the images into those to do and the records of those already complete.
+    pub fn plan(&self) -> (Vec<PathBuf>, Vec<ImageRecord>) {
+        let records = self.records();
+        let mut todo = Vec::new();
+        let mut complete = Vec::new();
+        for path in &self.images {
+            match records.complete(&stem_of(path)).filter(|_| !self.force) {
+                Some(rec) => complete.push(rec),
+                None => todo.push(path.clone()),
+            }
+        }
+        (todo, complete)
+    }
+
+    /// Runs the job and adds every image's class counts to `areas`, in the order of
+    /// `images` (so a resumed run writes the same table as a fresh one); `on_event` is
+    /// called from one thread at a time, in order.
+    pub fn run(
+        &self,
+        areas: &mut AreaTable,
+        mut on_event: impl FnMut(BatchEvent) + Send,
+    ) -> Result<BatchSummary> {
+        let t0 = Instant::now();
+        let records = self.records();
+        let (todo, complete) = self.plan();
+        if !complete.is_empty() {
+            on_event(BatchEvent::Skipping(&complete));
+        }
+        let shard = self.shard.map(|s| s.to_string());
+        let mut summary = BatchSummary {
+            skipped: complete.len(),
+            ..BatchSummary::default()
+        };
+        let model = self.model;
+        let mut counts: HashMap<String, Vec<u64>> = complete
+            .iter()
+            .map(|r| {
+                (
+                    stem_of(std::path::Path::new(&r.image)),
+                    r.class_pixels.clone(),
+                )
+            })
+            .collect();
+        std::thread::scope(|scope| -> Result<()> {
+            let (tx, rx) = sync_channel::<Work>(1);
+            let summary = &mut summary;
+            let counts = &mut counts;
+            let writer = scope.spawn(move || -> Result<()> {
+                for work in rx {
+                    let (path, image, probs, started) = match work {
+                        Work::Warning(w) => {
+                            on_event(BatchEvent::Warning(w));
+                            continue;
+                        }
+                        Work::Image {
+                            path,
+                            image,
+                            probs,
+                            started,
+                        } => (path, image, probs, started),
+                    };
+                    let stem = stem_of(&path);
+                    let written = write_outputs(
+                        &self.out_dir,
+                        &stem,
+                        &image,
+                        &probs,
+                        &model.classes,
+                        &self.options,
+                    )?;
+                    let mask = match self.roi {
+                        Some(r) => Some(r.mask(&stem, image.width, image.height)?),
+                        None => None,
+                    };
+                    let class_pixels =
+                        count_classes(&written.index, model.classes.len(), mask.as_deref());
+                    let pixels = (image.width * image.height) as u64;
+                    let secs = started.elapsed().as_secs_f64();
+                    let rec = records.make(
+                        &path,
+                        &written.files,
+                        pixels,
+                        class_pixels.clone(),
+                        secs,
+                        shard.clone(),
+                    );
+                    records.write(&stem, &rec)?;
+                    counts.insert(stem, class_pixels);
+                    summary.done += 1;
+                    summary.pixels += pixels;
+                    on_event(BatchEvent::Done(&rec));
+                }
+                Ok(())
+            });
+            let mut predicted = Ok(());
+            let mut warned = false;
+            for path in todo {
+                let started = Instant::now();
+                let image = match read_image(&path) {
+                    Ok(img) => img,
+                    Err(e) => {
+                        predicted = Err(e);
+                        break;
+                    }
+                };
+                if !warned && image.is_grey() != (model.features.channels == 1) {
+                    warned = true;
+                    let w = colour_mismatch(&path, image.is_grey());
+                    if tx.send(Work::Warning(w)).is_err() {
+                        break;
+                    }
+                }
+                let probs = crate::tiling::predict_tiled(model, &image, self.tile);
+                let work = Work::Image {
+                    path,
+                    image,
+                    probs,
+                    started,
+                };
+                if tx.send(work).is_err() {
+                    break; // the writer stopped on an error, which join reports
+                }
+            }
+            drop(tx);
+            let written = writer.join().expect("the output writer does not panic");
+            predicted.and(written)
+        })?;
+        for path in &self.images {
+            let stem = stem_of(path);
+            if let Some(c) = counts.get(&stem) {
+                areas.add_counts(&stem, c);
+            }
+        }
+        summary.seconds = t0.elapsed().as_secs_f64();
+        Ok(summary)
+    }
+}
+
+fn colour_mismatch(path: &std::path::Path, image_is_grey: bool) -> String {
+    let (model_kind, image_kind) = if image_is_grey {
+        ("colour", "grey")
+    } else {
+        ("grey", "colour")
+    };
+    format!(
+        "{}: {image_kind} image, but the model was trained on {model_kind} images; results may be poor (train on images like the ones you apply to)",
+        path.display()
+    )
+}

@@ -125,16 +125,19 @@ fn sharded_runs_equal_one_run_and_resume() {
         "1",
     ]);
 
-    // Three shards writing into one folder, as a job array would.
+    // Three shards, each into its own folder as the README's job scripts do.
     let sharded = root.join("sharded");
     let mut done = 0;
+    let mut shard_labels = BTreeMap::new();
+    let mut shard_overlays = BTreeMap::new();
     for k in 0..3 {
+        let out = sharded.join(format!("shard-{k}-of-3"));
         let log = grove(&[
             "apply",
             &s(&model),
             &s(&root.join("scenes")),
             "--out",
-            &s(&sharded),
+            &s(&out),
             "--shard",
             &format!("{k}/3"),
             "--log-json",
@@ -148,15 +151,37 @@ fn sharded_runs_equal_one_run_and_resume() {
             assert!(v["outputs"].as_array().unwrap().len() == 2, "{line}");
         }
         done += statuses(&log).len();
+        let n = shard_labels.len();
+        shard_labels.extend(files(&out.join("labels")));
+        shard_overlays.extend(files(&out.join("overlays")));
+        assert_eq!(
+            shard_labels.len(),
+            n + statuses(&log).len(),
+            "disjoint shards"
+        );
     }
     assert_eq!(done, 7);
     let labels = files(&whole.join("labels"));
     assert_eq!(labels.len(), 7);
-    assert_eq!(labels, files(&sharded.join("labels")));
-    assert_eq!(
-        files(&whole.join("overlays")),
-        files(&sharded.join("overlays"))
-    );
+    assert_eq!(labels, shard_labels);
+    assert_eq!(files(&whole.join("overlays")), shard_overlays);
+    // merge-areas over the shard folders gives the unsharded table (rows in another order).
+    let merged = root.join("merged.csv");
+    let pattern: Vec<String> = (0..3)
+        .map(|k| s(&sharded.join(format!("shard-{k}-of-3"))))
+        .collect();
+    let mut cmd = vec!["merge-areas"];
+    cmd.extend(pattern.iter().map(String::as_str));
+    let merged_arg = s(&merged);
+    cmd.extend(["--out", &merged_arg]);
+    grove(&cmd);
+    let sorted = |p: &Path| {
+        let text = std::fs::read_to_string(p).unwrap();
+        let mut rows: Vec<String> = text.lines().map(str::to_string).collect();
+        rows.sort();
+        rows
+    };
+    assert_eq!(sorted(&merged), sorted(&whole.join("areas.csv")));
 
     // Re-run: everything complete and made by this model → skipped.
     let args = |extra: &[&str]| -> Vec<String> {

@@ -4,6 +4,7 @@ mod apply;
 mod demo;
 mod eval;
 mod info;
+mod merge_areas;
 mod train;
 
 use clap::{Parser, Subcommand};
@@ -46,6 +47,12 @@ enum Command {
     Eval(eval::EvalArgs),
     /// Generate the synthetic farm dataset, train, score and apply, end to end.
     Demo(demo::DemoArgs),
+    /// Merge the area tables (areas.csv/json) of several apply output folders, e.g. shards.
+    #[command(
+        name = "merge-areas",
+        after_help = "Example:\n  grove merge-areas maps/shard-*-of-8 --out maps/areas.csv"
+    )]
+    MergeAreas(merge_areas::MergeAreasArgs),
     /// Show what a model file holds: classes, training images, settings, top features.
     Info(info::InfoArgs),
 }
@@ -83,6 +90,7 @@ pub fn run() -> i32 {
         Command::Eval(a) => eval::run(a, progress),
         Command::Demo(a) => demo::run(a, progress),
         Command::Info(a) => info::run(a),
+        Command::MergeAreas(a) => merge_areas::run(a),
     }))
     .unwrap_or_else(|_| {
         Err(GroveError::Internal(

@@ -135,6 +135,7 @@ mod tests {
             Path::new("in/x.png"),
             std::slice::from_ref(&label),
             4,
+            vec![3, 1],
             0.5,
             None,
         );

@@ -112,7 +112,7 @@ pub fn describe_decode_error(e: &image::ImageError, file_len: usize) -> String {
         || text.to_ascii_lowercase().contains("unexpected end")
         || text.to_ascii_lowercase().contains("eof");
     if truncated {
-        return "the file is truncated: it ends before all of its pixel data (copy it again from its source)".into();
+        return "the file is truncated or damaged: it ends before all of its pixel data (copy it again from its source)".into();
     }
     match e {
         E::Unsupported(u) => format!(

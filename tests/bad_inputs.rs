@@ -72,7 +72,7 @@ fn corrupt_image_is_named() {
     std::fs::write(root.join("images/a.png"), b"\x89PNG\r\n\x1a\ngarbage").unwrap();
     let err = train_error(&root);
     assert!(
-        err.contains("a.png") && err.contains("cannot decode"),
+        err.contains("a.png") && err.contains("truncated or damaged"),
         "{err}"
     );
 }

@@ -45,6 +45,7 @@ command -v cargo >/dev/null || export PATH="$HOME/.cargo/bin:$PATH"
 GROVE_BIN="$ROOT/target/release"
 grove() { "$GROVE_BIN/grove" "$@"; }
 rm -rf "$WORK/demo" "$WORK/whole" "$WORK/maps"
+mkdir -p "$WORK"
 grove demo --out "$WORK/demo" --quiet > "$WORK/demo.log"
 MODEL="$WORK/demo/model.grove"
 INPUT="$WORK/demo/*/images/*.png"       # quoted: grove expands it

@@ -84,12 +84,8 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
         areas.borrow_mut().add_counts(&e.stem, &counts);
         Ok(())
     };
-    let cm = evaluate_with(&model, &test, &test.labelled(), progress, deliver)?;
-    let report = MetricsReport::new(
-        &cm,
-        &model.classes,
-        test.entries.iter().map(|e| e.stem.clone()).collect(),
-    );
+    let scores = evaluate_with(&model, &test, &test.labelled(), progress, deliver)?;
+    let report = MetricsReport::new(&scores, &model.classes);
     println!("\nheld-out scores:\n{}", report.to_table());
     let metrics_path = out.join("metrics.json");
     write_atomic(&metrics_path, report.to_json().as_bytes())?;

@@ -74,9 +74,8 @@ pub fn run(args: EvalArgs, progress: Progress) -> Result<()> {
     if overlap > 0 {
         eprintln!("warning: {overlap} of these images share a name with training images; scores on training images are optimistic");
     }
-    let cm = evaluate_tiled(&model, &ds, &entries, args.tile, progress, |_, _, _| Ok(()))?;
-    let names = entries.iter().map(|e| e.stem.clone()).collect();
-    let report = MetricsReport::new(&cm, &model.classes, names);
+    let scores = evaluate_tiled(&model, &ds, &entries, args.tile, progress, |_, _, _| Ok(()))?;
+    let report = MetricsReport::new(&scores, &model.classes);
     print!("{}", report.to_table());
     if let Some(path) = &args.json {
         crate::imageio::write_atomic(path, report.to_json().as_bytes())?;

@@ -2,7 +2,9 @@
 //! area figures.
 
 pub mod areas;
+pub mod boundary;
 pub mod confusion;
 pub mod score;
 
+pub use boundary::BoundaryCounts;
 pub use confusion::ConfusionMatrix;

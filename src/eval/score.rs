@@ -4,11 +4,99 @@ use serde::Serialize;
 
 use crate::dataset::{ClassTable, Dataset, ImageEntry, UNLABELLED};
 use crate::error::{GroveError, Result};
+use crate::eval::boundary::{BoundaryCounts, DEFAULT_TOLERANCE};
 use crate::eval::confusion::ConfusionMatrix;
 use crate::imageio::RasterImage;
 use crate::progress::Progress;
 use crate::segmenter::{Probabilities, Segmenter};
 use crate::tiling::{predict_tiled, DEFAULT_TILE};
+
+/// Pixel and boundary counts of one labelling of some images, pooled and per image.
+#[derive(Clone, Debug)]
+pub struct Scores {
+    pub confusion: ConfusionMatrix,
+    pub boundary: BoundaryCounts,
+    pub per_image: Vec<ImageScores>,
+    /// All pixels of the scored images, labelled or not (to tell dense labels from scribbles).
+    pub pixels: u64,
+}
+
+/// One image's counts.
+#[derive(Clone, Debug)]
+pub struct ImageScores {
+    pub name: String,
+    pub confusion: ConfusionMatrix,
+    pub boundary: BoundaryCounts,
+}
+
+/// Below this share of labelled pixels the labels are taken for scribbles, and boundary F1
+/// is reported with a warning that it only sees where strokes of two classes touch.
+pub const SPARSE_LABELS: f64 = 0.5;
+
+impl Scores {
+    pub fn new(n_classes: usize) -> Self {
+        Scores {
+            confusion: ConfusionMatrix::new(n_classes),
+            boundary: BoundaryCounts::new(n_classes, DEFAULT_TOLERANCE)
+                .expect("the default tolerance is valid"),
+            per_image: Vec::new(),
+            pixels: 0,
+        }
+    }
+
+    /// Scores one image's predicted class indices against its true ones (`UNLABELLED` is
+    /// ignored).
+    pub fn add(
+        &mut self,
+        name: &str,
+        width: usize,
+        height: usize,
+        truth: &[u8],
+        pred: &[u8],
+    ) -> Result<()> {
+        let mut cm = ConfusionMatrix::new(self.confusion.n_classes());
+        cm.add(truth, pred, Some(UNLABELLED as u32))?;
+        let mut b = BoundaryCounts::new(self.boundary.n_classes(), self.boundary.tolerance())?;
+        b.add(width, height, truth, pred, UNLABELLED)?;
+        self.confusion.merge(&cm)?;
+        self.boundary.merge(&b)?;
+        self.pixels += (width * height) as u64;
+        self.per_image.push(ImageScores {
+            name: name.to_string(),
+            confusion: cm,
+            boundary: b,
+        });
+        Ok(())
+    }
+
+    pub fn pixel_accuracy(&self) -> Option<f64> {
+        self.confusion.pixel_accuracy()
+    }
+
+    pub fn mean_iou(&self) -> Option<f64> {
+        self.confusion.mean_iou()
+    }
+
+    /// Pooled boundary F1; None when the truth has no boundaries (see `eval::boundary`).
+    pub fn boundary_f1(&self) -> Option<f64> {
+        self.boundary.mean_f1()
+    }
+
+    /// True when fewer than half the pixels are labelled (scribbles).
+    pub fn sparse_labels(&self) -> bool {
+        (self.confusion.total() as f64) < SPARSE_LABELS * self.pixels as f64
+    }
+}
+
+/// One image's figures in the JSON report.
+#[derive(Clone, Debug, Serialize)]
+pub struct ImageReport {
+    pub image: String,
+    pub pixel_accuracy: Option<f64>,
+    pub mean_iou: Option<f64>,
+    pub boundary_f1: Option<f64>,
+    pub labelled_pixels: u64,
+}
 
 /// The scores as written by `--json` and by the demo's `metrics.json`.
 #[derive(Clone, Debug, Serialize)]
@@ -27,10 +115,21 @@ pub struct MetricsReport {
     pub classes: Vec<String>,
     pub labelled_pixels: u64,
     pub images: Vec<String>,
+    /// Mean over classes of the boundary F1 (`eval::boundary`); null when the truth has no
+    /// boundaries between labelled classes.
+    pub boundary_f1: Option<f64>,
+    /// Class name → boundary F1 (null when the class has no boundary pixels).
+    pub per_class_boundary_f1: serde_json::Map<String, serde_json::Value>,
+    pub boundary_tolerance_px: f32,
+    /// Share of the scored images' pixels that are labelled (below 0.5: scribbles, and
+    /// boundary F1 only sees where strokes of two classes touch).
+    pub labelled_fraction: f64,
+    pub per_image: Vec<ImageReport>,
 }
 
 impl MetricsReport {
-    pub fn new(cm: &ConfusionMatrix, classes: &ClassTable, images: Vec<String>) -> Self {
+    pub fn new(scores: &Scores, classes: &ClassTable) -> Self {
+        let cm = &scores.confusion;
         let names = classes.names();
         let by_name = |v: Vec<Option<f64>>| {
             names
@@ -59,9 +158,24 @@ impl MetricsReport {
             confusion: (0..k)
                 .map(|t| (0..k).map(|p| cm.get(t, p)).collect())
                 .collect(),
-            classes: names,
+            classes: classes.names(),
             labelled_pixels: cm.total(),
-            images,
+            images: scores.per_image.iter().map(|i| i.name.clone()).collect(),
+            boundary_f1: scores.boundary_f1(),
+            per_class_boundary_f1: by_name(scores.boundary.per_class_f1()),
+            boundary_tolerance_px: scores.boundary.tolerance(),
+            labelled_fraction: cm.total() as f64 / scores.pixels.max(1) as f64,
+            per_image: scores
+                .per_image
+                .iter()
+                .map(|i| ImageReport {
+                    image: i.name.clone(),
+                    pixel_accuracy: i.confusion.pixel_accuracy(),
+                    mean_iou: i.confusion.mean_iou(),
+                    boundary_f1: i.boundary.mean_f1(),
+                    labelled_pixels: i.confusion.total(),
+                })
+                .collect(),
         }
     }
 
@@ -83,21 +197,53 @@ impl MetricsReport {
                 .map_or("   -  ".to_string(), |x| format!("{x:6.4}"))
         };
         let mut s = format!(
-            "{} images, {} labelled pixels\npixel accuracy {:.4}   mean IoU {:.4}   mean class accuracy {:.4}\n\n",
+            "{} images, {} labelled pixels\npixel accuracy {:.4}   mean IoU {:.4}   mean class accuracy {:.4}   boundary F1 {} (within {} px)\n",
             self.images.len(),
             self.labelled_pixels,
             self.pixel_accuracy,
             self.mean_iou,
-            self.mean_class_accuracy
+            self.mean_class_accuracy,
+            self.boundary_f1.map_or("-".to_string(), |b| format!("{b:.4}")),
+            self.boundary_tolerance_px
         );
-        s += &format!("{:<width$}  {:>6}  {:>8}\n", "class", "IoU", "accuracy");
+        if let Some(note) = self.boundary_note() {
+            s += &format!("note: {note}\n");
+        }
+        s += &format!(
+            "\n{:<width$}  {:>6}  {:>8}  {:>11}\n",
+            "class", "IoU", "accuracy", "boundary F1"
+        );
         for name in &self.classes {
             s += &format!(
-                "{:<width$}  {}  {:>8}\n",
+                "{:<width$}  {}  {:>8}  {:>11}\n",
                 name,
                 fmt(&self.per_class_iou[name]),
-                fmt(&self.per_class_accuracy[name])
+                fmt(&self.per_class_accuracy[name]),
+                fmt(&self.per_class_boundary_f1[name])
             );
+        }
+        if self.per_image.len() > 1 {
+            let iw = self
+                .per_image
+                .iter()
+                .map(|i| i.image.len())
+                .max()
+                .unwrap_or(5)
+                .max(5);
+            let opt = |v: Option<f64>| v.map_or("   -  ".to_string(), |x| format!("{x:6.4}"));
+            s += &format!(
+                "\n{:<iw$}  {:>8}  {:>8}  {:>11}\n",
+                "image", "accuracy", "mean IoU", "boundary F1"
+            );
+            for i in &self.per_image {
+                s += &format!(
+                    "{:<iw$}  {:>8}  {:>8}  {:>11}\n",
+                    i.image,
+                    opt(i.pixel_accuracy),
+                    opt(i.mean_iou),
+                    opt(i.boundary_f1)
+                );
+            }
         }
         let cell = self
             .confusion
@@ -133,6 +279,22 @@ impl MetricsReport {
         s
     }
 
+    /// Why boundary F1 is missing or says little, if it does.
+    pub fn boundary_note(&self) -> Option<String> {
+        let sparse = self.labelled_fraction < SPARSE_LABELS;
+        match (self.boundary_f1, sparse) {
+            (None, _) => Some(
+                "boundary F1 is not defined: no two labelled classes touch in the truth (scribble labels?)"
+                    .into(),
+            ),
+            (Some(_), true) => Some(format!(
+                "only {:.0} % of pixels are labelled (scribbles?): boundary F1 sees only where strokes of two classes touch",
+                100.0 * self.labelled_fraction
+            )),
+            (Some(_), false) => None,
+        }
+    }
+
     /// The largest off-diagonal cell: (truth, prediction, count), if there is any error.
     pub fn worst_confusion(&self) -> Option<(usize, usize, u64)> {
         let cells = self
@@ -146,13 +308,13 @@ impl MetricsReport {
     }
 }
 
-/// Predicts every labelled image in `entries` and accumulates the confusion matrix.
+/// Predicts every labelled image in `entries` and scores it.
 pub fn evaluate(
     model: &Segmenter,
     dataset: &Dataset,
     entries: &[&ImageEntry],
     progress: Progress,
-) -> Result<ConfusionMatrix> {
+) -> Result<Scores> {
     evaluate_with(model, dataset, entries, progress, |_, _, _| Ok(()))
 }
 
@@ -164,7 +326,7 @@ pub fn evaluate_with<F>(
     entries: &[&ImageEntry],
     progress: Progress,
     visit: F,
-) -> Result<ConfusionMatrix>
+) -> Result<Scores>
 where
     F: FnMut(&ImageEntry, &RasterImage, &Probabilities) -> Result<()>,
 {
@@ -180,25 +342,88 @@ pub fn evaluate_tiled<F>(
     tile: usize,
     progress: Progress,
     mut visit: F,
-) -> Result<ConfusionMatrix>
+) -> Result<Scores>
 where
     F: FnMut(&ImageEntry, &RasterImage, &Probabilities) -> Result<()>,
 {
-    let mut cm = ConfusionMatrix::new(model.classes.len());
+    let mut scores = Scores::new(model.classes.len());
     let bar = progress.stage("scoring", entries.len() as u64);
     for e in entries {
         let (img, labels) = dataset.load_pair(e)?;
         let probs = predict_tiled(model, &img, tile);
-        cm.add(&labels.indices, &probs.argmax(), Some(UNLABELLED as u32))?;
+        scores.add(
+            &e.stem,
+            img.width,
+            img.height,
+            &labels.indices,
+            &probs.argmax(),
+        )?;
         visit(e, &img, &probs)?;
         bar.inc(1);
     }
     bar.finish_and_clear();
-    if cm.total() == 0 {
+    if scores.confusion.total() == 0 {
         return Err(GroveError::Data(format!(
             "{}: the scored images have no labelled pixels",
             dataset.root.display()
         )));
     }
-    Ok(cm)
+    Ok(scores)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::dataset::classes::ClassInfo;
+
+    fn two_classes() -> ClassTable {
+        ClassTable::new(
+            ["a", "b"]
+                .iter()
+                .enumerate()
+                .map(|(i, n)| ClassInfo {
+                    id: i as u8,
+                    name: n.to_string(),
+                    color: [i as u8 * 100, 0, 0],
+                })
+                .collect(),
+        )
+        .unwrap()
+    }
+
+    /// Two 4×1 images: one dense with a boundary predicted one pixel off, one scribbled
+    /// (strokes that do not touch); the report pools them and keeps them per image.
+    #[test]
+    fn report_pools_and_keeps_per_image_boundary_f1() {
+        let mut s = Scores::new(2);
+        s.add("dense", 4, 1, &[0, 0, 1, 1], &[0, 1, 1, 1]).unwrap();
+        s.add("strokes", 4, 1, &[0, 255, 255, 1], &[0, 0, 1, 1])
+            .unwrap();
+        assert!(!s.sparse_labels());
+        let r = MetricsReport::new(&s, &two_classes());
+        assert_eq!(r.images, vec!["dense", "strokes"]);
+        // Dense image: boundary pixels within 2 px of each other, F1 1 per class.
+        assert_eq!(r.per_image[0].boundary_f1, Some(1.0));
+        assert_eq!(r.per_image[1].boundary_f1, None);
+        assert_eq!(r.boundary_f1, Some(1.0));
+        assert_eq!(r.labelled_fraction, 6.0 / 8.0);
+        let json: serde_json::Value = serde_json::from_str(&r.to_json()).unwrap();
+        for key in [
+            "boundary_f1",
+            "per_class_boundary_f1",
+            "per_image",
+            "mean_iou",
+        ] {
+            assert!(json.get(key).is_some(), "JSON key {key}");
+        }
+        assert!(r.to_table().contains("boundary F1 1.0000"));
+
+        let mut scribbled = Scores::new(2);
+        scribbled
+            .add("strokes", 4, 1, &[0, 255, 255, 1], &[0, 0, 1, 1])
+            .unwrap();
+        let r = MetricsReport::new(&scribbled, &two_classes());
+        assert!(r.to_table().contains("not defined"));
+        assert!(r.to_json().contains("\"boundary_f1\": null"));
+    }
 }

@@ -14,6 +14,8 @@
 //! Each neighbour pair is stored once, as a "forward" edge from `p` to `p + FORWARD[d]`; a
 //! missing neighbour (outside the grid, or a diagonal under 4-connectivity) has weight 0.
 
+use rayon::prelude::*;
+
 use crate::plane::Plane;
 use crate::segmenter::Probabilities;
 
@@ -95,7 +97,7 @@ impl PottsEnergy {
         floor: f32,
         beta: f32,
     ) -> Self {
-        let unary = probs.data.iter().map(|&p| -p.max(floor).ln()).collect();
+        let unary = probs.data.par_iter().map(|&p| -p.max(floor).ln()).collect();
         let weights = contrast_weights(colour, strength, beta);
         PottsEnergy {
             width: probs.width,
@@ -253,18 +255,24 @@ pub fn contrast_weights(colour: &[Plane], strength: f32, beta: f32) -> Vec<f32> 
         std::f32::consts::FRAC_1_SQRT_2,
     ];
     let mut weights = vec![0.0f32; w * h * 4];
-    for y in 0..h {
-        for x in 0..w {
-            let p = y * w + x;
-            for (d, &(dx, dy)) in FORWARD.iter().enumerate() {
-                if edge_exists(w, h, Connectivity::Eight, x, y, d, dx, dy) {
-                    let q = ((y as isize + dy) as usize) * w + (x as isize + dx) as usize;
-                    weights[p * 4 + d] =
-                        strength * (-beta * colour_distance2(colour, p, q)).exp() * inv_dist[d];
+    if weights.is_empty() {
+        return weights;
+    }
+    weights
+        .par_chunks_mut(w * 4)
+        .enumerate()
+        .for_each(|(y, row)| {
+            for x in 0..w {
+                let p = y * w + x;
+                for (d, &(dx, dy)) in FORWARD.iter().enumerate() {
+                    if edge_exists(w, h, Connectivity::Eight, x, y, d, dx, dy) {
+                        let q = ((y as isize + dy) as usize) * w + (x as isize + dx) as usize;
+                        row[x * 4 + d] =
+                            strength * (-beta * colour_distance2(colour, p, q)).exp() * inv_dist[d];
+                    }
                 }
             }
-        }
-    }
+        });
     weights
 }
 

@@ -55,26 +55,40 @@ pub fn mean_field(
         for colour in 0..4 {
             let (px, py) = (colour & 1, colour >> 1);
             let rows = (energy.height + 1 - py) / 2;
-            out.resize(rows * w * n, 0.0);
+            // Pixels x ≡ px of a row, packed, so the exponentials run over one contiguous
+            // buffer (a vectorised loop) rather than pixel by pixel.
+            let cols = (w + 1 - px) / 2;
+            if rows == 0 || cols == 0 {
+                continue;
+            }
+            out.resize(rows * cols * n, 0.0);
             {
                 let q = &q;
                 let sm = &spatial_message;
-                out.par_chunks_mut(w * n).enumerate().for_each(|(k, row)| {
-                    let y = 2 * k + py;
-                    let mut s = vec![0.0f32; n];
-                    for x in (px..w).step_by(2) {
-                        update_pixel(energy, q, sm, x, y, &mut s);
-                        row[x * n..(x + 1) * n].copy_from_slice(&s);
-                    }
-                });
+                out.par_chunks_mut(cols * n)
+                    .enumerate()
+                    .for_each(|(k, row)| {
+                        let y = 2 * k + py;
+                        for (j, s) in row.chunks_exact_mut(n).enumerate() {
+                            log_update(energy, q, sm, px + 2 * j, y, s);
+                        }
+                        for v in row.iter_mut() {
+                            *v = fast_exp(*v);
+                        }
+                        for s in row.chunks_exact_mut(n) {
+                            let inv = 1.0 / s.iter().sum::<f32>();
+                            s.iter_mut().for_each(|v| *v *= inv);
+                        }
+                    });
             }
             q.par_chunks_mut(w * n)
                 .enumerate()
                 .filter(|(y, _)| y % 2 == py)
                 .for_each(|(y, row)| {
-                    let src = &out[(y / 2) * w * n..(y / 2 + 1) * w * n];
-                    for x in (px..w).step_by(2) {
-                        row[x * n..(x + 1) * n].copy_from_slice(&src[x * n..(x + 1) * n]);
+                    let src = &out[(y / 2) * cols * n..(y / 2 + 1) * cols * n];
+                    for (j, s) in src.chunks_exact(n).enumerate() {
+                        let x = px + 2 * j;
+                        row[x * n..(x + 1) * n].copy_from_slice(s);
                     }
                 });
         }
@@ -89,9 +103,10 @@ pub fn initial_q(energy: &PottsEnergy) -> Vec<f32> {
     q
 }
 
-/// The new `Q_p` from the current `Q` of the neighbours, into `s`.
+/// The new `ln Q_p` up to a constant, from the current `Q` of the neighbours, into `s`,
+/// shifted so that its largest entry is 0.
 #[inline]
-fn update_pixel(e: &PottsEnergy, q: &[f32], spatial: &[f32], x: usize, y: usize, s: &mut [f32]) {
+fn log_update(e: &PottsEnergy, q: &[f32], spatial: &[f32], x: usize, y: usize, s: &mut [f32]) {
     let (n, w, h) = (e.n_labels, e.width as isize, e.height as isize);
     let p = y * e.width + x;
     for (c, sc) in s.iter_mut().enumerate() {
@@ -118,7 +133,33 @@ fn update_pixel(e: &PottsEnergy, q: &[f32], spatial: &[f32], x: usize, y: usize,
             }
         }
     }
-    softmax_in_place(s);
+    let m = s.iter().copied().fold(f32::NEG_INFINITY, f32::max);
+    s.iter_mut().for_each(|v| *v -= m);
+}
+
+/// `eˣ` for `x ≤ 0` to a relative error below `10⁻⁶ + 10⁻⁷·|x|` (mostly the f32 rounding of
+/// `x·log₂e`; 0 below −87): `2^(x·log₂e)` split into a
+/// rounded integer part, put into the exponent bits, and a fraction in [−½, ½] whose `2^f`
+/// is a degree-6 Taylor polynomial (error ≤ (½ ln 2)⁷ / 7! ≈ 1.2·10⁻⁷). Unlike `f32::exp`
+/// (a libm call) it inlines and vectorises: the exponentials were a third of mean-field's time.
+#[inline]
+fn fast_exp(x: f32) -> f32 {
+    // 1.5 · 2²³: adding it rounds to an integer held in the low mantissa bits.
+    const MAGIC: f32 = 12_582_912.0;
+    let t = x.max(-87.0) * std::f32::consts::LOG2_E;
+    let shifted = t + MAGIC;
+    let i = shifted.to_bits() as i32 - MAGIC.to_bits() as i32;
+    let f = t - (shifted - MAGIC);
+    const C: [f32; 6] = [
+        std::f32::consts::LN_2,
+        0.240_226_5,
+        0.055_504_11,
+        0.009_618_129,
+        0.001_333_355_8,
+        0.000_154_035_3,
+    ];
+    let p = 1.0 + f * (C[0] + f * (C[1] + f * (C[2] + f * (C[3] + f * (C[4] + f * C[5])))));
+    p * f32::from_bits(((i + 127) << 23) as u32)
 }
 
 #[inline]
@@ -321,7 +362,23 @@ mod tests {
             assert!((p.iter().sum::<f32>() - 1.0).abs() < 1e-5);
         }
         e.weights.iter_mut().for_each(|w| *w = 0.0);
-        assert_eq!(mean_field(&e, 3, None), initial_q(&e));
+        for (a, b) in mean_field(&e, 3, None).iter().zip(initial_q(&e)) {
+            assert!((a - b).abs() < 1e-6);
+        }
+    }
+
+    #[test]
+    fn fast_exp_is_close_to_exp() {
+        let mut x = 0.0f32;
+        while x > -90.0 {
+            let (a, b) = (fast_exp(x) as f64, (x as f64).exp());
+            assert!(
+                (a - b).abs() <= (1e-6 + 1e-7 * x.abs() as f64) * b + 1e-37,
+                "{x}: {a} vs {b}"
+            );
+            x -= 0.0137;
+        }
+        assert_eq!(fast_exp(0.0), 1.0);
     }
 
     #[test]

@@ -51,6 +51,16 @@ pub fn max_pixels() -> u64 {
     }
 }
 
+/// 47.9, or 0.001 for small limits.
+fn megapixels(pixels: u64) -> String {
+    let mp = pixels as f64 / 1e6;
+    if mp < 1.0 {
+        format!("{mp:.3}")
+    } else {
+        format!("{mp:.1}")
+    }
+}
+
 fn gib(bytes: u64) -> String {
     format!("{:.1} GB", bytes as f64 / 1e9)
 }
@@ -72,9 +82,9 @@ pub fn size_problem(width: u64, height: u64) -> Option<String> {
     let limit = max_pixels();
     if pixels > limit {
         return Some(format!(
-                "image is {width}x{height} ({:.1} megapixels), above the limit of {:.1} megapixels; segmenting it would need about {} of memory ({} available). Crop or downscale it, or raise the limit with --max-megapixels (large images are not yet processed in tiles)",
+                "image is {width}x{height} ({:.1} megapixels), above the limit of {} megapixels; segmenting it would need about {} of memory ({} available). Crop or downscale it, or raise the limit with --max-megapixels (large images are not yet processed in tiles)",
                 pixels as f64 / 1e6,
-                limit as f64 / 1e6,
+                megapixels(limit),
                 gib(pixels.saturating_mul(BYTES_PER_PIXEL)),
                 available_memory().map_or("unknown".to_string(), gib),
         ));

@@ -113,7 +113,11 @@ fn decoder_for<'a>(
     path: &Path,
     bytes: &'a [u8],
 ) -> Result<(image::ImageFormat, impl image::ImageDecoder + 'a)> {
-    let reader = image::ImageReader::new(Cursor::new(bytes))
+    let mut reader = image::ImageReader::new(Cursor::new(bytes));
+    // grove's own limit (`image_check::max_pixels`, checked on the header) replaces the
+    // decoder's fixed 512 MiB one, whose "Memory limit exceeded" gives no size.
+    reader.no_limits();
+    let reader = reader
         .with_guessed_format()
         .map_err(|e| GroveError::io(path, e))?;
     let Some(format) = reader.format() else {

@@ -236,3 +236,658 @@ fn non_png_label_files_are_flagged() {
         ds.warnings
     );
 }
+
+// ---- The bad-input table (docs/bad-inputs.md): one test per row, through the binary. ----
+
+/// A labelled dataset of two 16 × 16 images and a model trained on it.
+fn fixture(dir: &Path) -> (PathBuf, PathBuf) {
+    let root = dataset(
+        &dir.join("data"),
+        TABLE,
+        &[("a", 16, 16, halves(16, 16)), ("b", 16, 16, halves(16, 16))],
+    );
+    let ds = Dataset::open(&root, LabelOptions::default()).unwrap();
+    let model = small_config()
+        .fit(&ds, &ds.labelled(), Progress::default())
+        .unwrap();
+    let path = dir.join("m.grove");
+    grove::model::save(&model, &path).unwrap();
+    (root, path)
+}
+
+fn p(path: &Path) -> &str {
+    path.to_str().unwrap()
+}
+
+/// Runs the binary and checks its exit code and that stderr contains every `needles`.
+fn expect(args: &[&str], code: i32, needles: &[&str]) {
+    let (got, err) = grove(args);
+    assert_eq!(got, code, "grove {args:?}: {err}");
+    for n in needles {
+        assert!(err.contains(n), "grove {args:?}: expected {n:?} in:\n{err}");
+    }
+    assert!(!err.contains("panicked"), "{err}");
+}
+
+fn apply_one(model: &Path, image: &Path, out: &Path, code: i32, needles: &[&str]) {
+    expect(
+        &["apply", p(model), p(image), "--out", p(out)],
+        code,
+        needles,
+    );
+}
+
+fn train_on(root: &Path, model: &Path, code: i32, needles: &[&str]) {
+    expect(
+        &[
+            "train",
+            p(root),
+            "--model",
+            p(model),
+            "--trees",
+            "2",
+            "--textons",
+            "4",
+        ],
+        code,
+        needles,
+    );
+}
+
+/// A PNG header declaring `w` × `h` with one tiny IDAT: a few hundred bytes on disk.
+fn png_declaring(w: u32, h: u32, colour: u8) -> Vec<u8> {
+    fn chunk(out: &mut Vec<u8>, kind: &[u8], data: &[u8]) {
+        out.extend((data.len() as u32).to_be_bytes());
+        let start = out.len();
+        out.extend(kind);
+        out.extend(data);
+        let crc = crc32(&out[start..]);
+        out.extend(crc.to_be_bytes());
+    }
+    // CRC-32 (ISO 3309, as the PNG spec requires), bitwise.
+    fn crc32(bytes: &[u8]) -> u32 {
+        let mut c = 0xffff_ffffu32;
+        for &b in bytes {
+            c ^= b as u32;
+            for _ in 0..8 {
+                c = if c & 1 != 0 {
+                    0xedb8_8320 ^ (c >> 1)
+                } else {
+                    c >> 1
+                };
+            }
+        }
+        !c
+    }
+    let mut out = b"\x89PNG\r\n\x1a\n".to_vec();
+    let mut ihdr = Vec::new();
+    ihdr.extend(w.to_be_bytes());
+    ihdr.extend(h.to_be_bytes());
+    ihdr.extend([8, colour, 0, 0, 0]);
+    chunk(&mut out, b"IHDR", &ihdr);
+    // A zlib stream of a few zero bytes (stored block).
+    chunk(
+        &mut out,
+        b"IDAT",
+        &[
+            0x78, 0x01, 0x01, 0x04, 0x00, 0xfb, 0xff, 0, 0, 0, 0, 0, 0x04, 0x00, 0x01,
+        ],
+    );
+    chunk(&mut out, b"IEND", &[]);
+    out
+}
+
+/// A 4 × 4 uncompressed little-endian grey TIFF of 32-bit floats (TIFF 6.0 fields;
+/// SampleFormat 3 = IEEE float).
+fn float_tiff(values: &[f32; 16]) -> Vec<u8> {
+    let data: Vec<u8> = values.iter().flat_map(|v| v.to_le_bytes()).collect();
+    let entries: [(u16, u16, u32); 10] = [
+        (256, 3, 4),                   // ImageWidth
+        (257, 3, 4),                   // ImageLength
+        (258, 3, 32),                  // BitsPerSample
+        (259, 3, 1),                   // Compression: none
+        (262, 3, 1),                   // Photometric: black is zero
+        (273, 4, 8 + 2 + 10 * 12 + 4), // StripOffsets: right after the IFD
+        (277, 3, 1),                   // SamplesPerPixel
+        (278, 3, 4),                   // RowsPerStrip
+        (279, 4, 64),                  // StripByteCounts
+        (339, 3, 3),                   // SampleFormat: float
+    ];
+    let mut out = b"II*\0".to_vec();
+    out.extend(8u32.to_le_bytes());
+    out.extend((entries.len() as u16).to_le_bytes());
+    for (tag, kind, value) in entries {
+        out.extend(tag.to_le_bytes());
+        out.extend(kind.to_le_bytes());
+        out.extend(1u32.to_le_bytes());
+        if kind == 3 {
+            out.extend((value as u16).to_le_bytes());
+            out.extend([0, 0]);
+        } else {
+            out.extend(value.to_le_bytes());
+        }
+    }
+    out.extend(0u32.to_le_bytes());
+    out.extend(data);
+    out
+}
+
+fn rgb_image(path: &Path, w: u32, h: u32) {
+    image::RgbImage::from_fn(w, h, |x, y| image::Rgb([(x * 9) as u8, (y * 7) as u8, 60]))
+        .save(path)
+        .unwrap();
+}
+
+#[test]
+fn table_corrupt_truncated_and_odd_images() {
+    let t = tempfile::tempdir().unwrap();
+    let (_, model) = fixture(t.path());
+    let out = t.path().join("out");
+    // Truncated PNG.
+    let png = t.path().join("cut.png");
+    rgb_image(&png, 64, 64);
+    let bytes = std::fs::read(&png).unwrap();
+    std::fs::write(&png, &bytes[..bytes.len() / 2]).unwrap();
+    apply_one(&model, &png, &out, 3, &["cut.png", "truncated"]);
+    // JPEG cut in half (the decoder alone would fill the missing half with grey).
+    let jpg = t.path().join("half.jpg");
+    rgb_image(&jpg, 64, 64);
+    let bytes = std::fs::read(&jpg).unwrap();
+    std::fs::write(&jpg, &bytes[..bytes.len() / 2]).unwrap();
+    apply_one(&model, &jpg, &out, 3, &["half.jpg", "JPEG is truncated"]);
+    // Truncated TIFF.
+    let tif = t.path().join("cut.tif");
+    rgb_image(&tif, 64, 64);
+    let bytes = std::fs::read(&tif).unwrap();
+    std::fs::write(&tif, &bytes[..bytes.len() / 2]).unwrap();
+    apply_one(&model, &tif, &out, 3, &["cut.tif", "truncated"]);
+    // Zero bytes.
+    let empty = t.path().join("empty.png");
+    std::fs::write(&empty, b"").unwrap();
+    apply_one(&model, &empty, &out, 3, &["empty.png", "empty (0 bytes)"]);
+    // Text with an image name.
+    let text = t.path().join("notes.png");
+    std::fs::write(&text, b"these are my notes").unwrap();
+    apply_one(
+        &model,
+        &text,
+        &out,
+        3,
+        &["notes.png", "not a PNG, JPEG or TIFF image"],
+    );
+    // A JPEG named .png is read by its content.
+    let misnamed = t.path().join("photo.png");
+    std::fs::copy(t.path().join("half.jpg"), &misnamed).unwrap();
+    rgb_image(&t.path().join("whole.jpg"), 16, 16);
+    std::fs::copy(t.path().join("whole.jpg"), &misnamed).unwrap();
+    apply_one(&model, &misnamed, &out, 0, &[]);
+    // 32-bit float TIFF (grey): says which kinds are supported.
+    let float = t.path().join("float.tif");
+    std::fs::write(&float, float_tiff(&[0.5; 16])).unwrap();
+    apply_one(&model, &float, &out, 3, &["float.tif", "8- or 16-bit"]);
+    // An RGB float TIFF is read, but NaN or infinity is refused with its position.
+    let mut values = vec![0.5f32; 48];
+    values[3 * 6 + 1] = f32::NAN;
+    let nan = t.path().join("nan.tif");
+    image::Rgb32FImage::from_raw(4, 4, values)
+        .unwrap()
+        .save(&nan)
+        .unwrap();
+    apply_one(
+        &model,
+        &nan,
+        &out,
+        3,
+        &["nan.tif", "non-finite value (NaN) at x=2, y=1"],
+    );
+}
+
+#[test]
+fn table_oversized_images_fail_before_allocating() {
+    let t = tempfile::tempdir().unwrap();
+    let (root, model) = fixture(t.path());
+    // An image header declaring 100000 × 100000 (a few hundred bytes on disk).
+    let big = t.path().join("big.png");
+    std::fs::write(&big, png_declaring(100_000, 100_000, 2)).unwrap();
+    apply_one(
+        &model,
+        &big,
+        &t.path().join("o"),
+        3,
+        &[
+            "big.png",
+            "100000x100000",
+            "--max-megapixels",
+            "GB of memory",
+        ],
+    );
+    // A 16-megapixel-limit override makes an ordinary image too large, with the same message.
+    let img = t.path().join("64.png");
+    rgb_image(&img, 64, 64);
+    expect(
+        &[
+            "--max-megapixels",
+            "0.001",
+            "apply",
+            p(&model),
+            p(&img),
+            "--out",
+            p(&t.path().join("o")),
+        ],
+        3,
+        &["64.png", "above the limit of 0.001 megapixels"],
+    );
+    // A label file declaring 100000 × 100000 is compared with its image by header.
+    std::fs::write(
+        root.join("labels/a.png"),
+        png_declaring(100_000, 100_000, 0),
+    )
+    .unwrap();
+    let started = std::time::Instant::now();
+    train_on(
+        &root,
+        &t.path().join("m2.grove"),
+        3,
+        &[
+            "labels/a.png",
+            "label size 100000x100000 differs from image size 16x16",
+        ],
+    );
+    expect(
+        &["eval", p(&model), p(&root)],
+        3,
+        &["label size 100000x100000"],
+    );
+    assert!(
+        started.elapsed().as_secs() < 20,
+        "refused without allocating 10 GB"
+    );
+}
+
+#[test]
+fn table_label_problems() {
+    let t = tempfile::tempdir().unwrap();
+    let (root, model) = fixture(t.path());
+    // Unknown colour in a colour-coded label.
+    let mut rgb = image::RgbImage::from_pixel(16, 16, image::Rgb([0x8a, 0x6a, 0x4a]));
+    rgb.put_pixel(3, 2, image::Rgb([1, 2, 3]));
+    rgb.save(root.join("labels/a.png")).unwrap();
+    expect(
+        &["eval", p(&model), p(&root)],
+        3,
+        &[
+            "labels/a.png",
+            "colour #010203 (1 px, first at x=3, y=2)",
+            "--unknown-as-unlabelled",
+        ],
+    );
+    // Truncated label PNG.
+    let good = std::fs::read(root.join("labels/b.png")).unwrap();
+    std::fs::write(root.join("labels/a.png"), &good[..good.len() / 2]).unwrap();
+    train_on(
+        &root,
+        &t.path().join("x.grove"),
+        3,
+        &["labels/a.png", "label PNG"],
+    );
+}
+
+#[test]
+fn table_dataset_and_class_table_problems() {
+    let t = tempfile::tempdir().unwrap();
+    let (root, _) = fixture(t.path());
+    let m = t.path().join("x.grove");
+    // Not a dataset folder.
+    train_on(&t.path().join("nowhere"), &m, 3, &["not a grove dataset"]);
+    // Empty images/.
+    let empty = t.path().join("empty");
+    std::fs::create_dir_all(empty.join("images")).unwrap();
+    std::fs::write(empty.join("classes.toml"), TABLE).unwrap();
+    train_on(&empty, &m, 3, &["no images (PNG, JPEG or TIFF) found"]);
+    // Missing class table, and a class table that is a folder.
+    std::fs::remove_file(empty.join("classes.toml")).unwrap();
+    train_on(&empty, &m, 3, &["classes.toml", "missing class table"]);
+    std::fs::create_dir(empty.join("classes.toml")).unwrap();
+    train_on(&empty, &m, 3, &["classes.toml", "is a folder"]);
+    // Malformed TOML, duplicate colours, too few classes.
+    let table = root.join("classes.toml");
+    std::fs::write(&table, "[[class]\nid = 0").unwrap();
+    train_on(&root, &m, 3, &["classes.toml", "invalid class table"]);
+    std::fs::write(&table, TABLE.replace("#2f9e44", "#8a6a4a")).unwrap();
+    train_on(&root, &m, 3, &["duplicate colour #8a6a4a"]);
+    std::fs::write(&table, "class = []\n").unwrap();
+    train_on(&root, &m, 3, &["0 class(es)", "at least 2"]);
+    // Class names that would steer output paths or break tables.
+    for (name, needle) in [
+        ("../../../escaped", "contains '/'"),
+        ("a/b", "contains '/'"),
+        ("x\\ny", "control character"),
+        (".hidden", "starts with '.'"),
+    ] {
+        std::fs::write(&table, TABLE.replace("\"crop\"", &format!("\"{name}\""))).unwrap();
+        train_on(&root, &m, 3, &["classes.toml", needle]);
+    }
+    assert!(!m.exists());
+}
+
+#[test]
+fn table_grove_temporaries_are_never_inputs() {
+    let t = tempfile::tempdir().unwrap();
+    let (root, _) = fixture(t.path());
+    std::fs::copy(
+        root.join("images/a.png"),
+        root.join("images/.grove-tmp-1@h~0.png"),
+    )
+    .unwrap();
+    let ds = Dataset::open(&root, LabelOptions::default()).unwrap();
+    assert_eq!(ds.entries.len(), 2, "a temporary was listed as an image");
+}
+
+#[cfg(unix)]
+#[test]
+fn table_non_utf8_file_names_are_refused_not_dropped() {
+    use std::os::unix::ffi::OsStrExt;
+    let t = tempfile::tempdir().unwrap();
+    let (root, model) = fixture(t.path());
+    let name = std::ffi::OsStr::from_bytes(b"caf\xe9.png");
+    std::fs::copy(root.join("images/a.png"), root.join("images").join(name)).unwrap();
+    std::fs::copy(root.join("labels/a.png"), root.join("labels").join(name)).unwrap();
+    train_on(
+        &root,
+        &t.path().join("x.grove"),
+        3,
+        &["not valid UTF-8", "rename"],
+    );
+    expect(
+        &[
+            "apply",
+            p(&model),
+            p(&root),
+            "--out",
+            p(&t.path().join("o")),
+        ],
+        3,
+        &["not valid UTF-8"],
+    );
+}
+
+#[test]
+fn table_model_file_problems() {
+    let t = tempfile::tempdir().unwrap();
+    let (root, model) = fixture(t.path());
+    let bytes = std::fs::read(&model).unwrap();
+    let out = t.path().join("o");
+    let img = root.join("images/a.png");
+    let bad = t.path().join("bad.grove");
+    let mut check = |content: &[u8], needle: &str| {
+        std::fs::write(&bad, content).unwrap();
+        apply_one(&bad, &img, &out, 4, &["bad.grove", needle]);
+    };
+    check(b"hello", "not a grove model file");
+    check(&bytes[..bytes.len() / 2], "truncated");
+    let mut flipped = bytes.clone();
+    let mid = flipped.len() / 2;
+    flipped[mid] ^= 0x10;
+    check(&flipped, "damaged (checksum mismatch)");
+    let mut newer = bytes.clone();
+    newer[8..12].copy_from_slice(&(grove::model::FORMAT_VERSION + 1).to_le_bytes());
+    check(&newer, "newer than this grove");
+    let mut appended = bytes.clone();
+    appended.extend(b"garbage");
+    check(&appended, "7 unexpected bytes after its end");
+    apply_one(
+        Path::new("/dev/zero"),
+        &img,
+        &out,
+        4,
+        &["/dev/zero", "not a regular file"],
+    );
+    // Arguments swapped: the dataset where the model should be.
+    expect(
+        &["eval", p(&root), p(&model)],
+        4,
+        &["is a folder, not a model file", "right order"],
+    );
+    expect(
+        &["info", p(&t.path().join("missing.grove"))],
+        4,
+        &["missing.grove", "no such file or folder"],
+    );
+}
+
+#[test]
+fn table_grey_image_into_colour_model_warns() {
+    let t = tempfile::tempdir().unwrap();
+    let (_, model) = fixture(t.path());
+    let grey = t.path().join("grey.png");
+    image::GrayImage::from_pixel(16, 16, image::Luma([100]))
+        .save(&grey)
+        .unwrap();
+    apply_one(
+        &model,
+        &grey,
+        &t.path().join("o"),
+        0,
+        &[
+            "warning",
+            "grey image, but the model was trained on colour images",
+        ],
+    );
+}
+
+#[test]
+fn table_outputs_never_replace_inputs_or_foreign_files() {
+    let t = tempfile::tempdir().unwrap();
+    let (root, model) = fixture(t.path());
+    let before = std::fs::read(root.join("labels/a.png")).unwrap();
+    // apply into the dataset: refused; predictions never replace hand-made labels.
+    expect(
+        &["apply", p(&model), p(&root), "--out", p(&root)],
+        5,
+        &["is one of this command's inputs"],
+    );
+    expect(
+        &[
+            "apply",
+            p(&model),
+            p(&root.join("images")),
+            "--out",
+            p(&root),
+        ],
+        5,
+        &["is a dataset folder"],
+    );
+    assert_eq!(std::fs::read(root.join("labels/a.png")).unwrap(), before);
+    // train onto its own class table or image: refused even with --force.
+    let table = root.join("classes.toml");
+    train_on(
+        &root,
+        &table,
+        5,
+        &["classes.toml", "is one of this command's inputs"],
+    );
+    expect(
+        &[
+            "train",
+            p(&root),
+            "--model",
+            p(&root.join("images/a.png")),
+            "--force",
+        ],
+        5,
+        &["inputs"],
+    );
+    assert_eq!(std::fs::read_to_string(&table).unwrap(), TABLE);
+    // A foreign file at --model: refused, replaced with --force.
+    let notes = t.path().join("notes.txt");
+    std::fs::write(&notes, "mine").unwrap();
+    train_on(
+        &root,
+        &notes,
+        5,
+        &["notes.txt", "not written by grove", "--force"],
+    );
+    assert_eq!(std::fs::read_to_string(&notes).unwrap(), "mine");
+    expect(
+        &[
+            "train",
+            p(&root),
+            "--model",
+            p(&notes),
+            "--trees",
+            "2",
+            "--textons",
+            "4",
+            "--force",
+        ],
+        0,
+        &[],
+    );
+    // grove's own model is replaced without --force.
+    train_on(&root, &notes, 0, &[]);
+    // eval --json onto a foreign file.
+    let j = t.path().join("scores.json");
+    std::fs::write(&j, "{}").unwrap();
+    expect(
+        &["eval", p(&model), p(&root), "--json", p(&j)],
+        5,
+        &["scores.json", "--force"],
+    );
+    // Re-running apply replaces its own outputs.
+    let out = t.path().join("out");
+    for _ in 0..2 {
+        expect(
+            &[
+                "apply",
+                p(&model),
+                p(&root),
+                "--out",
+                p(&out),
+                "--probabilities",
+            ],
+            0,
+            &[],
+        );
+    }
+}
+
+#[test]
+fn table_output_places_checked_before_the_work() {
+    let t = tempfile::tempdir().unwrap();
+    let (root, model) = fixture(t.path());
+    let file = t.path().join("plain-file");
+    std::fs::write(&file, "x").unwrap();
+    // --model's parent is a file: refused before training, in words.
+    train_on(
+        &root,
+        &file.join("m.grove"),
+        5,
+        &["is a file, not a folder"],
+    );
+    // --model is a folder.
+    train_on(&root, t.path(), 5, &["is a folder; give a file name"]);
+    // --out is a file.
+    apply_one(
+        &model,
+        &root.join("images/a.png"),
+        &file,
+        5,
+        &["plain-file", "is a file, not a folder"],
+    );
+    // Two inputs with the same name would write the same outputs.
+    let other = t.path().join("other");
+    std::fs::create_dir_all(&other).unwrap();
+    std::fs::copy(root.join("images/a.png"), other.join("a.png")).unwrap();
+    expect(
+        &[
+            "apply",
+            p(&model),
+            p(&root),
+            p(&other),
+            "--out",
+            p(&t.path().join("o")),
+        ],
+        3,
+        &["same name as"],
+    );
+}
+
+#[test]
+fn table_unwritable_and_full_disk_messages() {
+    // As root (CI), no folder is unwritable and there is no full disk to hand, so these two
+    // rows check the wording of the OS errors that `write_atomic` reports.
+    let denied = grove::GroveError::write(
+        "maps/a.png",
+        std::io::Error::from(std::io::ErrorKind::PermissionDenied),
+    );
+    assert!(
+        denied
+            .to_string()
+            .contains("maps/a.png: cannot write: permission denied"),
+        "{denied}"
+    );
+    assert_eq!(denied.kind().exit_code(), 5);
+    let full = grove::GroveError::write("maps/a.png", std::io::Error::from_raw_os_error(28)); // ENOSPC
+    assert!(
+        full.to_string().contains("no space left on the device"),
+        "{full}"
+    );
+    // /dev/full as the target folder's file: the rename-based write fails cleanly, exit 5.
+    #[cfg(target_os = "linux")]
+    {
+        let (code, err) = grove(&["demo", "--out", "/dev/full"]);
+        assert_eq!(code, 5, "{err}");
+    }
+}
+
+#[test]
+fn table_options_out_of_range_are_usage_errors() {
+    let t = tempfile::tempdir().unwrap();
+    let (root, model) = fixture(t.path());
+    let m = t.path().join("x.grove");
+    let train = |extra: &[&str], needle: &str| {
+        let mut args = vec!["train", p(&root), "--model", p(&m)];
+        args.extend(extra);
+        expect(&args, 2, &[needle]);
+    };
+    train(
+        &["--texton-windows", "65537"],
+        "texton window 65537 must be an odd number between 1 and 65535",
+    );
+    train(&["--texton-windows", "4"], "must be an odd number");
+    train(&["--trees", "0"], "trees = 0 must be between 1 and 4096");
+    train(&["--max-depth", "1000"], "between 1 and 64");
+    train(&["--textons", "100000"], "at most 1024");
+    train(&["--scales", "0"], "scale 0 must be a number in (0, 64]");
+    train(&["--samples-per-image", "0"], "between 1 and 1000000");
+    train(&["--trees", "-3"], "unexpected argument");
+    expect(
+        &["--threads", "100000", "info", p(&model)],
+        2,
+        &["100000 is not in 1..=1024"],
+    );
+    expect(
+        &["--threads", "0", "info", p(&model)],
+        2,
+        &["0 is not in 1..=1024"],
+    );
+    expect(
+        &["--max-megapixels", "0", "info", p(&model)],
+        2,
+        &["--max-megapixels"],
+    );
+    expect(
+        &[
+            "apply",
+            p(&model),
+            p(&root),
+            "--out",
+            p(&t.path().join("o")),
+            "--opacity",
+            "2",
+        ],
+        2,
+        &["--opacity 2"],
+    );
+    assert!(!m.exists());
+}

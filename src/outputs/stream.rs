@@ -1,4 +1,5 @@
-//! `apply` for images too large to hold: the image is read band by band (one row of tiles
+//! Segmenting an image too large to hold (library API; `apply`'s batch driver does not call
+//! it yet, it still decodes whole images): the image is read band by band (one row of tiles
 //! plus the halo rows), predicted tile by tile ([`crate::tiling::predict_band`]), and every
 //! output is written as it goes, row by row (PNG stream writers). Memory is bounded by the
 //! tile size and the image width, never by the image height. The outputs are the same files,
@@ -18,7 +19,7 @@ use crate::outputs::{overlay, to_u8, OutputOptions, OutputPaths};
 use crate::segmenter::{Probabilities, Segmenter};
 use crate::tiling::{predict_band, TileGrid};
 
-/// Images above this many pixels are streamed by `apply` (when tiling is on): the
+/// Images above this many pixels should take the streaming path (when tiling is on): the
 /// whole-image path holds the image, its probabilities and its outputs at once (~60 bytes per
 /// pixel with five classes), which stays under 0.5 GB up to here.
 pub const STREAM_ABOVE_PIXELS: usize = 8_000_000;

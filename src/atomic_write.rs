@@ -115,6 +115,77 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
     Ok(())
 }
 
+/// A file written in pieces (a streamed label map of a huge image) under the same rules as
+/// [`write_atomic`]: it lives under a temporary name until [`AtomicFile::commit`] renames it;
+/// dropped without a commit (an error, a panic) it is removed.
+pub struct AtomicFile {
+    path: PathBuf,
+    file: std::fs::File,
+    guard: TempGuard,
+}
+
+impl AtomicFile {
+    pub fn create(path: &Path) -> Result<AtomicFile> {
+        let dir = path
+            .parent()
+            .filter(|p| !p.as_os_str().is_empty())
+            .unwrap_or(Path::new("."));
+        std::fs::create_dir_all(dir).map_err(|e| GroveError::write(dir, e))?;
+        sweep_once(dir);
+        let tmp = temp_path(dir);
+        in_flight()
+            .lock()
+            .unwrap_or_else(|p| p.into_inner())
+            .push(tmp.clone());
+        let mut guard = TempGuard {
+            path: tmp.clone(),
+            armed: false,
+        };
+        let file = create_new(&tmp).map_err(|e| GroveError::write(path, e))?;
+        guard.armed = true;
+        Ok(AtomicFile {
+            path: path.to_path_buf(),
+            file,
+            guard,
+        })
+    }
+
+    /// The final path (for error messages).
+    pub fn path(&self) -> &Path {
+        &self.path
+    }
+
+    /// A second handle on the temporary file, for encoders that take ownership of a writer.
+    pub fn handle(&self) -> Result<std::fs::File> {
+        self.file
+            .try_clone()
+            .map_err(|e| GroveError::write(&self.path, e))
+    }
+
+    /// The last `n` bytes written so far (to check that an encoder finished its file).
+    pub fn tail(&self, n: usize) -> Result<Vec<u8>> {
+        use std::io::{Read, Seek, SeekFrom};
+        let mut f =
+            std::fs::File::open(&self.guard.path).map_err(|e| GroveError::write(&self.path, e))?;
+        let mut buf = vec![0u8; n];
+        f.seek(SeekFrom::End(-(n as i64)))
+            .and_then(|_| f.read_exact(&mut buf))
+            .map_err(|e| GroveError::write(&self.path, e))?;
+        Ok(buf)
+    }
+
+    /// Flushes to disk and renames the temporary over the final name.
+    pub fn commit(mut self) -> Result<()> {
+        self.file
+            .sync_all()
+            .map_err(|e| GroveError::write(&self.path, e))?;
+        std::fs::rename(&self.guard.path, &self.path)
+            .map_err(|e| GroveError::write(&self.path, e))?;
+        self.guard.armed = false;
+        Ok(())
+    }
+}
+
 #[cfg(unix)]
 fn create_new(path: &Path) -> std::io::Result<std::fs::File> {
     use std::os::unix::fs::OpenOptionsExt;

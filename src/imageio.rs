@@ -12,6 +12,9 @@ use image::DynamicImage;
 
 use crate::error::{GroveError, Result};
 use crate::image_check::{check_jpeg_complete, check_size, describe_decode_error, size_problem};
+
+pub mod stream;
+pub mod stream_out;
 use crate::plane::Plane;
 
 /// An input image as sRGB-encoded planes in [0, 1]: one plane (grey) or three (R, G, B).

@@ -5,6 +5,8 @@
 //! Layout under the output folder: `labels/STEM.png`, `overlays/STEM.png`,
 //! `confidence/STEM.png`, `probabilities/STEM/CLASS.png`.
 
+pub mod stream;
+
 use std::path::{Path, PathBuf};
 
 use crate::dataset::ClassTable;
@@ -33,7 +35,8 @@ impl Default for OutputOptions {
     }
 }
 
-fn to_u8(v: f32) -> u8 {
+/// A value in [0, 1] as a byte (rounded, clamped).
+pub(crate) fn to_u8(v: f32) -> u8 {
     (v * 255.0).round().clamp(0.0, 255.0) as u8
 }
 

@@ -22,7 +22,7 @@ pub fn encode(values: &[u8]) -> Vec<u8> {
 
 /// Decodes runs into exactly `n` values; anything else is an error message.
 pub fn decode(bytes: &[u8], n: usize) -> Result<Vec<u8>, String> {
-    if bytes.len() % 5 != 0 {
+    if !bytes.len().is_multiple_of(5) {
         return Err("label data is not a whole number of runs".into());
     }
     let mut out = Vec::with_capacity(n);

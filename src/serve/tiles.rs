@@ -66,14 +66,15 @@ fn halve(l: &Level) -> Level {
             for sy in (2 * y)..(2 * y + 2).min(l.height) {
                 for sx in (2 * x)..(2 * x + 2).min(l.width) {
                     let p = (sy * l.width + sx) * 3;
-                    for k in 0..3 {
-                        sum[k] += l.rgb[p + k] as u32;
+                    for (s, &v) in sum.iter_mut().zip(&l.rgb[p..p + 3]) {
+                        *s += v as u32;
                     }
                     n += 1;
                 }
             }
-            for k in 0..3 {
-                rgb[(y * w + x) * 3 + k] = ((sum[k] + n / 2) / n) as u8;
+            let out = &mut rgb[(y * w + x) * 3..(y * w + x) * 3 + 3];
+            for (o, s) in out.iter_mut().zip(sum) {
+                *o = ((s + n / 2) / n) as u8;
             }
         }
     }

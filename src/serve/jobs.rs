@@ -17,6 +17,7 @@ use super::http::Reply;
 use super::Workspace;
 use crate::dataset::Dataset;
 use crate::error::Result;
+use crate::eval::areas::{count_classes, AreaTable};
 use crate::imageio::{encode_png, read_image};
 use crate::progress::Progress;
 use crate::segmenter::{Segmenter, TrainConfig};
@@ -244,17 +245,17 @@ pub fn layers(ws: &Workspace, name: &str) -> Reply {
         Ok(v) => v,
         Err(r) => return r,
     };
-    let n = (l.width * l.height) as f64;
-    let mut counts = vec![0u64; model.classes.len()];
-    for &c in &l.prediction {
-        counts[c as usize] += 1;
-    }
-    let areas: Vec<Value> = model
-        .classes
-        .classes()
-        .iter()
-        .zip(&counts)
-        .map(|(c, &px)| json!({"class": c.name, "pixels": px, "fraction": px as f64 / n}))
+    // Per-class area through the same table `grove apply` writes areas.csv with.
+    let mut table = AreaTable::new(model.classes.names(), None);
+    table.add_counts(
+        name,
+        &count_classes(&l.prediction, model.classes.len(), None),
+    );
+    let areas: Vec<Value> = table
+        .rows()
+        .into_iter()
+        .filter(|r| r.image == name)
+        .map(|r| json!({"class": r.class, "pixels": r.pixels, "fraction": r.fraction}))
         .collect();
     Reply::json(
         200,

@@ -1,7 +1,8 @@
 //! Work that takes longer than a request: training (`TrainConfig::fit` on a background
 //! thread, its stages followed through `Progress::observed`, so the page keeps working and
 //! polls for progress), and the layers computed from the current model for one image
-//! (prediction and uncertainty from `predict_proba`), cached per model generation.
+//! (prediction and uncertainty from `predict_proba`, the smoothed prediction from
+//! `smooth::smooth`), cached per model generation.
 
 use std::collections::HashMap;
 use std::path::Path;
@@ -15,12 +16,13 @@ use serde_json::{json, Value};
 use super::dataset_api::find_image;
 use super::http::Reply;
 use super::Workspace;
-use crate::dataset::Dataset;
+use crate::dataset::{Dataset, UNLABELLED};
 use crate::error::Result;
 use crate::eval::areas::{count_classes, AreaTable};
 use crate::imageio::{encode_png, read_image};
 use crate::progress::Progress;
 use crate::segmenter::{Segmenter, TrainConfig};
+use crate::smooth::{smooth, SmoothSettings};
 
 /// The stage bar of the training that is running (one per process: `Progress` observers
 /// are plain functions).
@@ -46,6 +48,8 @@ struct ImageLayers {
     prediction: Vec<u8>,
     /// 0 = sure, 1 = as unsure as the class count allows.
     uncertainty: Vec<f32>,
+    /// Class index per pixel after pairwise smoothing (`smooth::smooth`, default settings).
+    smoothed: Vec<u8>,
 }
 
 pub struct Jobs {
@@ -175,7 +179,19 @@ pub fn start_training(ws: &Arc<Workspace>) -> Reply {
 /// The same call as `grove train DATA --model FILE` with default settings.
 fn train(ws: &Workspace) -> Result<(Segmenter, usize)> {
     let ds = Dataset::open(&ws.root, ws.label_options)?;
-    let entries = ds.labelled();
+    // A label file the page saved empty (everything erased) is not a training image.
+    let mut entries = Vec::new();
+    for e in ds.labelled() {
+        if ds
+            .load_labels_checked(e)?
+            .1
+            .indices
+            .iter()
+            .any(|&c| c != UNLABELLED)
+        {
+            entries.push(e);
+        }
+    }
     let model = TrainConfig::default().fit(&ds, &entries, Progress::observed(observe_stage))?;
     crate::model::save(&model, &ws.model_path)?;
     Ok((model, entries.len()))
@@ -224,11 +240,14 @@ fn layers_of(
         .into_iter()
         .map(|c| ((1.0 - c) / (1.0 - floor)).clamp(0.0, 1.0))
         .collect();
+    let settings = SmoothSettings::default();
+    let smoothed = smooth(&probs, &model.features.lab(&image), &settings, None).labels;
     let layers = Arc::new(ImageLayers {
         width: probs.width,
         height: probs.height,
         prediction: probs.argmax(),
         uncertainty,
+        smoothed,
     });
     let mut cache = ws.jobs.layers.lock().expect("layer lock poisoned");
     cache.retain(|(n, _, _)| n != name);
@@ -264,7 +283,7 @@ pub fn layers(ws: &Workspace, name: &str) -> Reply {
             "generation": generation,
             "width": l.width,
             "height": l.height,
-            "layers": ["prediction", "uncertainty"],
+            "layers": ["prediction", "smoothed", "uncertainty"],
             "areas": areas,
             "regions": [],
         }),
@@ -278,10 +297,14 @@ pub fn layer_png(ws: &Workspace, name: &str, kind: &str) -> Reply {
         Err(r) => return r,
     };
     let rgba: Vec<u8> = match kind {
-        "prediction.png" => {
+        "prediction.png" | "smoothed.png" => {
             let colours: Vec<[u8; 3]> = model.classes.classes().iter().map(|c| c.color).collect();
-            l.prediction
-                .iter()
+            let map = if kind == "smoothed.png" {
+                &l.smoothed
+            } else {
+                &l.prediction
+            };
+            map.iter()
                 .flat_map(|&c| {
                     let [r, g, b] = colours[c as usize];
                     [r, g, b, 255]

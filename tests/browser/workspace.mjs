@@ -119,42 +119,7 @@ for (const [k, im] of labelledImages.entries()) {
 }
 log('painted and saved', Object.keys(painted).length, 'images');
 
-// 3. Train from the page; the page stays usable (open another image meanwhile).
-const trainStart = Date.now();
-await page.click('#train');
-await page.waitForFunction(() => S.training);
-await openImage(plan.images[3].image);
-await page.waitForFunction(() => /trained on/.test(document.getElementById('train-state').textContent), null, { timeout: 60000 });
-const trainSeconds = await page.evaluate(() => Number((document.getElementById('train-state').textContent.match(/in ([\d.]+) s/) || [])[1]));
-log(`trained (server ${trainSeconds} s, page ${(Date.now() - trainStart) / 1000} s)`);
-await page.waitForFunction(() => S.img.layerImgs.prediction && S.img.layerImgs.prediction.complete && S.img.layerImgs.prediction.naturalWidth > 0);
-check(await page.locator('#layer-prediction').isChecked(), 'prediction layer shown');
-check(await page.locator('#scores td').count() > 0, 'scores shown');
-check((await page.locator('#scores .caveat').count()) > 0 || (await page.locator('#scores').textContent()).includes('by image'), 'score caveat or crossval shown');
-check(await page.locator('#areas tr').count() >= 2, 'areas shown');
-await shot('workspace-2-trained');
-const regions = await page.evaluate(() => S.layers.regions.length);
-if (regions > 0) {
-  await page.click('#next-region');
-  await shot('workspace-3-suggested');
-} else {
-  log('no suggested regions offered by the server');
-}
-
-// 4. Correct: paint this image's planned strokes over the prediction, retrain.
-await page.keyboard.press('f');
-for (const s of plan.images[3].strokes) await paintStroke(s);
-await saved();
-await dumpLabels(plan.images[3].image);
-await shot('workspace-4-correct');
-await page.click('#train');
-await page.waitForFunction(() => S.training);
-await page.waitForFunction(() => !S.training && S.model && S.model.images === 4, null, { timeout: 60000 });
-await page.waitForFunction(() => S.img.layerImgs.prediction && S.img.layerImgs.prediction.complete && S.layers.gen >= 2);
-await shot('workspace-5-retrained');
-log('corrected and retrained');
-
-// 5. Brush response and zoom/pan on a 4000 × 3000 image.
+// 3. Brush response and zoom/pan on a 4000 × 3000 image.
 await openImage('big_field');
 await page.waitForFunction(() => [...S.tiles.values()].some((t) => t.ok));
 await page.evaluate(() => { groveStats.stroke.length = 0; groveStats.frame.length = 0; });
@@ -182,6 +147,41 @@ check(stats.stroke_p95 < 16, `brush stroke handler p95 ${stats.stroke_p95} ms < 
 await saved();
 await page.keyboard.press('Control+z');
 await saved();
+
+// 4. Train from the page; the page stays usable (open another image meanwhile).
+const trainStart = Date.now();
+await page.click('#train');
+await page.waitForFunction(() => S.training);
+await openImage(plan.images[3].image);
+await page.waitForFunction(() => /trained on/.test(document.getElementById('train-state').textContent), null, { timeout: 60000 });
+const trainSeconds = await page.evaluate(() => Number((document.getElementById('train-state').textContent.match(/in ([\d.]+) s/) || [])[1]));
+log(`trained (server ${trainSeconds} s, page ${(Date.now() - trainStart) / 1000} s)`);
+await page.waitForFunction(() => S.img.layerImgs.prediction && S.img.layerImgs.prediction.complete && S.img.layerImgs.prediction.naturalWidth > 0);
+check(await page.locator('#layer-prediction').isChecked(), 'prediction layer shown');
+check(await page.locator('#scores td').count() > 0, 'scores shown');
+check((await page.locator('#scores .caveat').count()) > 0 || (await page.locator('#scores').textContent()).includes('by image'), 'score caveat or crossval shown');
+check(await page.locator('#areas tr').count() >= 2, 'areas shown');
+await shot('workspace-2-trained');
+const regions = await page.evaluate(() => S.layers.regions.length);
+if (regions > 0) {
+  await page.click('#next-region');
+  await shot('workspace-3-suggested');
+} else {
+  log('no suggested regions offered by the server');
+}
+
+// 5. Correct: paint this image's planned strokes over the prediction, retrain.
+await page.keyboard.press('f');
+for (const s of plan.images[3].strokes) await paintStroke(s);
+await saved();
+await dumpLabels(plan.images[3].image);
+await shot('workspace-4-correct');
+await page.click('#train');
+await page.waitForFunction(() => S.training);
+await page.waitForFunction(() => !S.training && S.model && S.model.images === 4, null, { timeout: 60000 });
+await page.waitForFunction(() => S.img.layerImgs.prediction && S.img.layerImgs.prediction.complete && S.layers.gen >= 2);
+await shot('workspace-5-retrained');
+log('corrected and retrained');
 
 // 6. Kill the server mid-session and start it again: everything saved is there.
 await openImage(plan.images[4].image);

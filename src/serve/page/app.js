@@ -229,10 +229,18 @@ async function openImage(name) {
   const canvas = document.createElement('canvas');
   canvas.width = w; canvas.height = h;
   const lctx = canvas.getContext('2d');
+  // A reduced copy of the labels for zoomed-out views: scaling the full-size label canvas
+  // down every frame is what made pans slow on large images.
+  let pf = 1;
+  while (Math.max(w, h) / pf > 1024) pf *= 2;
+  const preview = document.createElement('canvas');
+  preview.width = Math.ceil(w / pf); preview.height = Math.ceil(h / pf);
+  const pctx = preview.getContext('2d');
+  pctx.imageSmoothingEnabled = false;
   S.img = {
     name, w, h, tile: info.tile, levels: info.levels, labels,
     version: (r.headers.get('ETag') || '"none"').replace(/"/g, ''),
-    canvas, lctx, data: lctx.createImageData(w, h),
+    canvas, lctx, data: lctx.createImageData(w, h), preview, pctx, pf,
     marks: new Uint16Array(w * h), markGen: 0,
     undo: [], redo: [], stroke: null, dirty: false, edits: 0, saving: null, conflict: false,
     layerImgs: {},
@@ -278,6 +286,13 @@ function paintRect(x0, y0, x1, y1) {
     }
   }
   im.lctx.putImageData(im.data, 0, 0, x0, y0, x1 - x0, y1 - y0);
+  if (im.pf > 1) {
+    const f = im.pf;
+    const px0 = Math.floor(x0 / f), py0 = Math.floor(y0 / f);
+    const px1 = Math.ceil(x1 / f), py1 = Math.ceil(y1 / f);
+    im.pctx.clearRect(px0, py0, px1 - px0, py1 - py0);
+    im.pctx.drawImage(im.canvas, px0 * f, py0 * f, (px1 - px0) * f, (py1 - py0) * f, px0, py0, px1 - px0, py1 - py0);
+  }
 }
 
 // ---------- view ----------
@@ -361,16 +376,21 @@ function draw() {
   // Full-size layers (prediction, uncertainty): only their visible part is scaled.
   const sx0 = Math.floor(vx0), sy0 = Math.floor(vy0);
   const sw = Math.ceil(vx1) - sx0, sh = Math.ceil(vy1) - sy0;
-  const blit = (source, alpha) => {
+  const blit = (source, alpha, f = 1) => {
     ctx.globalAlpha = alpha;
-    ctx.drawImage(source, sx0, sy0, sw, sh, ox + sx0 * scale, oy + sy0 * scale, sw * scale, sh * scale);
+    const a = Math.floor(sx0 / f), b = Math.floor(sy0 / f);
+    const c = Math.min(source.width, Math.ceil((sx0 + sw) / f)) - a, d = Math.min(source.height, Math.ceil((sy0 + sh) / f)) - b;
+    ctx.drawImage(source, a, b, c, d, ox + a * f * scale, oy + b * f * scale, c * f * scale, d * f * scale);
     ctx.globalAlpha = 1;
   };
   for (const kind of ['prediction', 'smoothed', 'uncertainty']) {
     const lv = S.layerView[kind], img = im.layerImgs[kind];
     if (lv.on && img && img.complete && img.naturalWidth) blit(img, lv.alpha);
   }
-  if (S.opacity > 0) blit(im.canvas, S.opacity);
+  if (S.opacity > 0) {
+    const usePreview = im.pf > 1 && scale * dpr * im.pf <= 1.5;
+    blit(usePreview ? im.preview : im.canvas, S.opacity, usePreview ? im.pf : 1);
+  }
   if (S.layerView.regions.on) {
     ctx.lineWidth = 2;
     S.layers.regions.forEach((r, k) => {

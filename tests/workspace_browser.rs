@@ -38,7 +38,8 @@ fn demo_table() -> ClassTable {
     ClassTable::parse(DEMO_CLASSES_TOML, 255).unwrap()
 }
 
-/// A horizontal stroke of `len` px at least `margin` px inside one class of `truth`, or None.
+/// A horizontal stroke of `len` px at least `margin` px inside one class of `truth`, or None;
+/// scanned row by row from the top, or from the bottom when `from_bottom`.
 fn find_stroke(
     truth: &[u8],
     w: usize,
@@ -46,6 +47,7 @@ fn find_stroke(
     id: u8,
     len: usize,
     margin: usize,
+    from_bottom: bool,
 ) -> Option<[usize; 2]> {
     let inside = |x: usize, y: usize| {
         for yy in y.saturating_sub(margin)..(y + margin + 1).min(h) {
@@ -57,8 +59,11 @@ fn find_stroke(
         }
         true
     };
-    // Scan from the middle outwards so strokes land in large regions, deterministically.
-    for y in (margin..h - margin).step_by(7) {
+    let mut rows: Vec<usize> = (margin..h - margin).step_by(7).collect();
+    if from_bottom {
+        rows.reverse();
+    }
+    for y in rows {
         for x in (margin..w.saturating_sub(len + margin)).step_by(7) {
             if inside(x, y) {
                 return Some([x, y]);
@@ -82,7 +87,12 @@ fn prepare(data: &Path) -> Value {
             .unwrap();
         let mut strokes = Vec::new();
         for (index, c) in table.classes().iter().enumerate() {
-            if let Some([x, y]) = find_stroke(&s.labels, 256, 256, c.id, 36, 7) {
+            let top = find_stroke(&s.labels, 256, 256, c.id, 36, 7, false);
+            let bottom = find_stroke(&s.labels, 256, 256, c.id, 36, 7, true);
+            for [x, y] in top
+                .into_iter()
+                .chain(bottom.filter(|b| top.is_some_and(|t| t[1].abs_diff(b[1]) > 20)))
+            {
                 strokes.push(json!({"class": index, "size": 8, "points": [[x, y], [x + 18, y + 1], [x + 36, y]]}));
             }
         }

@@ -30,7 +30,7 @@ function startServer() {
 const problems = [];
 let server = startServer();
 let url = await server.url;
-const ctx = await launch({ width: 1180, height: 700 });
+const ctx = await launch({ width: 1180, height: 860 });
 const page = ctx.pages()[0] || await ctx.newPage();
 let killed = false;
 page.on('console', (m) => { if (m.type() === 'error' && !killed) problems.push(`console: ${m.text()}`); });
@@ -41,7 +41,7 @@ async function shot(name) {
   await page.waitForTimeout(150);
   const path = join(out, `${name}.png`);
   await page.screenshot({ path });
-  if (docs && name.startsWith('workspace-')) copyFileSync(path, join(docs, `${name}.png`));
+  if (docs && /^workspace-[125]/.test(name)) copyFileSync(path, join(docs, `${name}.png`));
 }
 const saved = () => page.waitForFunction(() => document.getElementById('save-state').dataset.state === 'saved' && !S.img.dirty);
 

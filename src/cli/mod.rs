@@ -4,8 +4,8 @@ mod apply;
 mod demo;
 mod eval;
 mod info;
-mod merge_areas;
 mod label;
+mod merge_areas;
 mod train;
 
 use clap::{Parser, Subcommand};

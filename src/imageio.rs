@@ -375,7 +375,8 @@ pub fn decode_label_png(bytes: &[u8]) -> std::result::Result<LabelFile, String> 
 
 pub use crate::atomic_write::write_atomic;
 
-fn encode_png(
+/// An 8-bit PNG in memory (fast compression), for files and for the workspace's tiles.
+pub fn encode_png(
     width: usize,
     height: usize,
     color: png::ColorType,

@@ -3,7 +3,8 @@
 //! The modules follow the data flow: `dataset` → `features` → `forest` → `segmenter`
 //! (fit / predict) → `smooth` (optional CRF) → `eval` and `outputs`; `model` is the file
 //! format; `demo` makes the built-in synthetic farm scenes; `batch` drives `apply` over many
-//! images and shards; `cli` is the thin command layer.
+//! images and shards; `cli` is the thin command layer and `serve` the web workspace, another
+//! thin layer over the same calls.
 
 pub mod atomic_write;
 pub mod batch;
@@ -22,6 +23,7 @@ pub mod outputs;
 pub mod plane;
 pub mod progress;
 pub mod segmenter;
+pub mod serve;
 pub mod smooth;
 pub mod tiling;
 

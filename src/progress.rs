@@ -7,15 +7,34 @@ use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 #[derive(Clone, Copy, Debug, Default)]
 pub struct Progress {
     pub enabled: bool,
+    /// Told about every stage bar (hidden ones too), so a caller other than a terminal (the
+    /// web workspace) can follow a long step by reading the bar's position.
+    pub observer: Option<fn(&str, &ProgressBar)>,
 }
 
 impl Progress {
     pub fn new(enabled: bool) -> Self {
-        Progress { enabled }
+        Progress {
+            enabled,
+            observer: None,
+        }
+    }
+
+    /// No terminal output; `observer` receives each stage's (hidden) bar.
+    pub fn observed(observer: fn(&str, &ProgressBar)) -> Self {
+        Progress {
+            enabled: false,
+            observer: Some(observer),
+        }
     }
 
     /// A bar for `total` steps of the named stage.
     pub fn stage(&self, name: &str, total: u64) -> ProgressBar {
+        if let Some(observe) = self.observer {
+            let bar = ProgressBar::with_draw_target(Some(total), ProgressDrawTarget::hidden());
+            observe(name, &bar);
+            return bar;
+        }
         if !self.enabled {
             return ProgressBar::hidden();
         }
@@ -49,6 +68,11 @@ impl Progress {
 
     /// A spinner for a step whose length is unknown (forest training).
     pub fn spinner(&self, name: &str) -> ProgressBar {
+        if let Some(observe) = self.observer {
+            let bar = ProgressBar::with_draw_target(None, ProgressDrawTarget::hidden());
+            observe(name, &bar);
+            return bar;
+        }
         if !self.enabled {
             return ProgressBar::hidden();
         }

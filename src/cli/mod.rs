@@ -4,6 +4,7 @@ mod apply;
 mod demo;
 mod eval;
 mod info;
+mod label;
 mod merge_areas;
 mod train;
 
@@ -55,6 +56,11 @@ enum Command {
     MergeAreas(merge_areas::MergeAreasArgs),
     /// Show what a model file holds: classes, training images, settings, top features.
     Info(info::InfoArgs),
+    /// Label, train and review in the browser: a local workspace over a dataset folder.
+    #[command(
+        after_help = "Example:\n  grove label fields/            # prints http://127.0.0.1:PORT/?token=...\n\nThe server listens on 127.0.0.1 only and every request needs the printed token."
+    )]
+    Label(label::LabelCmdArgs),
 }
 
 /// Most worker threads accepted (more only costs start-up time and memory).
@@ -91,6 +97,7 @@ pub fn run() -> i32 {
         Command::Demo(a) => demo::run(a, progress),
         Command::Info(a) => info::run(a),
         Command::MergeAreas(a) => merge_areas::run(a),
+        Command::Label(a) => label::run(a),
     }))
     .unwrap_or_else(|_| {
         Err(GroveError::Internal(

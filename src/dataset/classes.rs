@@ -209,7 +209,8 @@ impl ClassTable {
     }
 
     /// TOML text in the same format `load` reads (with a comment marking it as grove's own
-    /// output, see `output_guard`).
+    /// output, see `output_guard`; names quoted by the TOML serialiser, so a quote in a name
+    /// cannot break the file).
     pub fn to_toml(&self) -> String {
         let mut s = format!(
             "# class table {} {}\n\n",
@@ -218,13 +219,18 @@ impl ClassTable {
         );
         for c in &self.classes {
             s += &format!(
-                "[[class]]\nid = {}\nname = \"{}\"\ncolor = \"{}\"\n\n",
+                "[[class]]\nid = {}\nname = {}\ncolor = \"{}\"\n\n",
                 c.id,
-                c.name.replace('"', "\\\""),
+                toml::Value::String(c.name.clone()),
                 hex_colour(c.color)
             );
         }
         s
+    }
+
+    /// Writes the table to `path` (atomically), in the format `load` reads.
+    pub fn save(&self, path: &Path) -> Result<()> {
+        crate::imageio::write_atomic(path, self.to_toml().as_bytes())
     }
 }
 
@@ -277,6 +283,20 @@ mod tests {
         assert!(ClassTable::parse(&long, 255)
             .unwrap_err()
             .contains("longer than 64"));
+        let odd = ClassTable::new(vec![
+            ClassInfo {
+                id: 0,
+                name: "a \"quoted\" name".into(),
+                color: [1, 2, 3],
+            },
+            ClassInfo {
+                id: 9,
+                name: "b".into(),
+                color: [4, 5, 6],
+            },
+        ])
+        .unwrap();
+        assert_eq!(ClassTable::parse(&odd.to_toml(), 255).unwrap(), odd);
         let one = "[[class]]\nid = 0\nname = \"a\"\ncolor = \"#000000\"\n";
         assert!(ClassTable::parse(one, 255)
             .unwrap_err()

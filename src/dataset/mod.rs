@@ -4,6 +4,7 @@
 pub mod classes;
 pub mod labels;
 pub mod sample;
+pub mod save;
 
 use std::path::{Path, PathBuf};
 

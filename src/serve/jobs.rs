@@ -1,0 +1,327 @@
+//! Work that takes longer than a request: training (`TrainConfig::fit` on a background
+//! thread, its stages followed through `Progress::observed`, so the page keeps working and
+//! polls for progress), and the layers computed from the current model for one image
+//! (prediction and uncertainty from `predict_proba`, the smoothed prediction from
+//! `smooth::smooth`), cached per model generation.
+
+use std::collections::HashMap;
+use std::path::Path;
+use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::{Arc, Mutex, RwLock};
+use std::time::Instant;
+
+use indicatif::ProgressBar;
+use serde_json::{json, Value};
+
+use super::dataset_api::find_image;
+use super::http::Reply;
+use super::Workspace;
+use crate::dataset::{Dataset, UNLABELLED};
+use crate::error::Result;
+use crate::eval::areas::{count_classes, AreaTable};
+use crate::imageio::{encode_png, read_image};
+use crate::progress::Progress;
+use crate::segmenter::{Segmenter, TrainConfig};
+use crate::smooth::{smooth, SmoothSettings};
+
+/// The stage bar of the training that is running (one per process: `Progress` observers
+/// are plain functions).
+static STAGE: Mutex<Option<(String, ProgressBar)>> = Mutex::new(None);
+
+fn observe_stage(name: &str, bar: &ProgressBar) {
+    *STAGE.lock().expect("stage lock poisoned") = Some((name.to_string(), bar.clone()));
+}
+
+#[derive(Clone)]
+enum TrainState {
+    Idle,
+    Running { started: Instant },
+    Done { seconds: f64, images: usize },
+    Failed { message: String },
+}
+
+/// Layers of one image under one model.
+struct ImageLayers {
+    width: usize,
+    height: usize,
+    /// Class index (of the model's table) per pixel.
+    prediction: Vec<u8>,
+    /// 0 = sure, 1 = as unsure as the class count allows.
+    uncertainty: Vec<f32>,
+    /// Class index per pixel after pairwise smoothing (`smooth::smooth`, default settings).
+    smoothed: Vec<u8>,
+}
+
+pub struct Jobs {
+    model: RwLock<Option<Arc<Segmenter>>>,
+    /// Bumped whenever the model changes; layers and scores name the generation they show.
+    generation: AtomicU64,
+    train: Mutex<TrainState>,
+    layers: Mutex<Vec<(String, u64, Arc<ImageLayers>)>>,
+}
+
+/// Layer sets cached (each is a few bytes per pixel).
+const KEEP_LAYERS: usize = 4;
+
+impl Jobs {
+    /// Starts from the model file if it exists.
+    pub fn new(model_path: &Path) -> Result<Jobs> {
+        let model = if model_path.is_file() {
+            Some(Arc::new(crate::model::load(model_path)?))
+        } else {
+            None
+        };
+        Ok(Jobs {
+            generation: AtomicU64::new(model.is_some() as u64),
+            model: RwLock::new(model),
+            train: Mutex::new(TrainState::Idle),
+            layers: Mutex::new(Vec::new()),
+        })
+    }
+
+    fn model(&self) -> Option<(Arc<Segmenter>, u64)> {
+        let m = self.model.read().expect("model lock poisoned").clone()?;
+        Some((m, self.generation.load(Ordering::SeqCst)))
+    }
+
+    /// What the page shows about the model: classes, images, and the score it has.
+    pub fn model_summary(&self) -> Value {
+        let Some((m, generation)) = self.model() else {
+            return Value::Null;
+        };
+        let p = &m.provenance;
+        json!({
+            "generation": generation,
+            "classes": m.classes.names(),
+            "images": p.training_images.len(),
+            "created_unix": p.created_unix,
+            "scores": {
+                "kind": "oob",
+                "oob_accuracy": p.oob_accuracy,
+                "caveat": "out-of-bag accuracy on sampled pixels of the training images: optimistic, because pixels of one image are alike; a held-out image score is the honest one",
+            },
+        })
+    }
+
+    /// Suggestion rank per image name (1 = label this next), when known.
+    pub fn suggestion_ranks(&self) -> HashMap<String, usize> {
+        HashMap::new()
+    }
+
+    /// Last held-out score per image name, when known.
+    pub fn image_scores(&self) -> HashMap<String, f64> {
+        HashMap::new()
+    }
+
+    pub fn status_json(&self) -> Value {
+        let state = self.train.lock().expect("train lock poisoned").clone();
+        match state {
+            TrainState::Idle => json!({"state": "idle"}),
+            TrainState::Running { started } => {
+                let stage = STAGE.lock().expect("stage lock poisoned").clone();
+                let (name, pos, len) = match stage {
+                    Some((n, bar)) => (n, bar.position(), bar.length()),
+                    None => ("starting".to_string(), 0, None),
+                };
+                json!({
+                    "state": "running",
+                    "stage": name,
+                    "done": pos,
+                    "total": len,
+                    "seconds": started.elapsed().as_secs_f64(),
+                })
+            }
+            TrainState::Done { seconds, images } => json!({
+                "state": "done",
+                "seconds": seconds,
+                "images": images,
+                "generation": self.generation.load(Ordering::SeqCst),
+            }),
+            TrainState::Failed { message } => json!({"state": "failed", "message": message}),
+        }
+    }
+}
+
+/// Starts training on every labelled image, unless a training is running.
+pub fn start_training(ws: &Arc<Workspace>) -> Reply {
+    {
+        let mut state = ws.jobs.train.lock().expect("train lock poisoned");
+        if matches!(*state, TrainState::Running { .. }) {
+            return Reply::error(409, "a training is already running");
+        }
+        *state = TrainState::Running {
+            started: Instant::now(),
+        };
+    }
+    *STAGE.lock().expect("stage lock poisoned") = None;
+    let ws = ws.clone();
+    std::thread::spawn(move || {
+        let started = Instant::now();
+        let outcome = train(&ws);
+        let mut state = ws.jobs.train.lock().expect("train lock poisoned");
+        *state = match outcome {
+            Ok((model, images)) => {
+                *ws.jobs.model.write().expect("model lock poisoned") = Some(Arc::new(model));
+                ws.jobs.generation.fetch_add(1, Ordering::SeqCst);
+                TrainState::Done {
+                    seconds: started.elapsed().as_secs_f64(),
+                    images,
+                }
+            }
+            Err(e) => TrainState::Failed {
+                message: e.to_string(),
+            },
+        };
+    });
+    Reply::json(202, &json!({"state": "running"}))
+}
+
+/// The same call as `grove train DATA --model FILE` with default settings.
+fn train(ws: &Workspace) -> Result<(Segmenter, usize)> {
+    let ds = Dataset::open(&ws.root, ws.label_options)?;
+    // A label file the page saved empty (everything erased) is not a training image.
+    let mut entries = Vec::new();
+    for e in ds.labelled() {
+        if ds
+            .load_labels_checked(e)?
+            .1
+            .indices
+            .iter()
+            .any(|&c| c != UNLABELLED)
+        {
+            entries.push(e);
+        }
+    }
+    let model = TrainConfig::default().fit(&ds, &entries, Progress::observed(observe_stage))?;
+    crate::model::save(&model, &ws.model_path)?;
+    Ok((model, entries.len()))
+}
+
+pub fn training_status(ws: &Workspace) -> Reply {
+    Reply::json(200, &ws.jobs.status_json())
+}
+
+/// The layers of `name` under the current model, computed on first use.
+fn layers_of(
+    ws: &Workspace,
+    name: &str,
+) -> std::result::Result<(Arc<ImageLayers>, Arc<Segmenter>, u64), Reply> {
+    let path = find_image(ws, name)?;
+    let Some((model, generation)) = ws.jobs.model() else {
+        return Err(Reply::error(409, "no model yet: train first"));
+    };
+    if let Some((_, _, l)) = ws
+        .jobs
+        .layers
+        .lock()
+        .expect("layer lock poisoned")
+        .iter()
+        .find(|(n, g, _)| n == name && *g == generation)
+    {
+        return Ok((l.clone(), model, generation));
+    }
+    let image = read_image(&path).map_err(|e| Reply::error(422, e.to_string()))?;
+    let image = if model.features.channels == 3 {
+        image.to_rgb()
+    } else {
+        image
+    };
+    if model.features.channels == 1 && !image.is_grey() {
+        return Err(Reply::error(
+            409,
+            "the model was trained on grey images; this one is in colour: retrain",
+        ));
+    }
+    let probs = model.predict_proba(&image);
+    let k = probs.n_classes as f32;
+    let floor = 1.0 / k;
+    let uncertainty = probs
+        .confidence()
+        .into_iter()
+        .map(|c| ((1.0 - c) / (1.0 - floor)).clamp(0.0, 1.0))
+        .collect();
+    let settings = SmoothSettings::default();
+    let smoothed = smooth(&probs, &model.features.lab(&image), &settings, None).labels;
+    let layers = Arc::new(ImageLayers {
+        width: probs.width,
+        height: probs.height,
+        prediction: probs.argmax(),
+        uncertainty,
+        smoothed,
+    });
+    let mut cache = ws.jobs.layers.lock().expect("layer lock poisoned");
+    cache.retain(|(n, _, _)| n != name);
+    cache.push((name.to_string(), generation, layers.clone()));
+    while cache.len() > KEEP_LAYERS {
+        cache.remove(0);
+    }
+    Ok((layers, model, generation))
+}
+
+/// Which layers exist for the image, and its predicted area per class.
+pub fn layers(ws: &Workspace, name: &str) -> Reply {
+    let (l, model, generation) = match layers_of(ws, name) {
+        Ok(v) => v,
+        Err(r) => return r,
+    };
+    // Per-class area through the same table `grove apply` writes areas.csv with.
+    let mut table = AreaTable::new(model.classes.names(), None);
+    table.add_counts(
+        name,
+        &count_classes(&l.prediction, model.classes.len(), None),
+    );
+    let areas: Vec<Value> = table
+        .rows()
+        .into_iter()
+        .filter(|r| r.image == name)
+        .map(|r| json!({"class": r.class, "pixels": r.pixels, "fraction": r.fraction}))
+        .collect();
+    Reply::json(
+        200,
+        &json!({
+            "name": name,
+            "generation": generation,
+            "width": l.width,
+            "height": l.height,
+            "layers": ["prediction", "smoothed", "uncertainty"],
+            "areas": areas,
+            "regions": [],
+        }),
+    )
+}
+
+/// A layer as an RGBA PNG at image size (the page blends it with its own opacity).
+pub fn layer_png(ws: &Workspace, name: &str, kind: &str) -> Reply {
+    let (l, model, _) = match layers_of(ws, name) {
+        Ok(v) => v,
+        Err(r) => return r,
+    };
+    let rgba: Vec<u8> = match kind {
+        "prediction.png" | "smoothed.png" => {
+            let colours: Vec<[u8; 3]> = model.classes.classes().iter().map(|c| c.color).collect();
+            let map = if kind == "smoothed.png" {
+                &l.smoothed
+            } else {
+                &l.prediction
+            };
+            map.iter()
+                .flat_map(|&c| {
+                    let [r, g, b] = colours[c as usize];
+                    [r, g, b, 255]
+                })
+                .collect()
+        }
+        // Unsure pixels glow magenta, sure ones are transparent.
+        "uncertainty.png" => l
+            .uncertainty
+            .iter()
+            .flat_map(|&u| [255, 0, 200, (u * 255.0).round() as u8])
+            .collect(),
+        _ => return Reply::error(404, "no such layer"),
+    };
+    Reply::new(
+        200,
+        "image/png",
+        encode_png(l.width, l.height, png::ColorType::Rgba, None, &rgba),
+    )
+}

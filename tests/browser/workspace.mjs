@@ -1,0 +1,221 @@
+// The workspace (`grove label`) in headless Chromium, as a user would use it: make the class
+// table, paint strokes with the mouse, undo/redo, train, look at the layers and scores, move
+// to the next suggested region, correct, retrain, kill and restart the server. Run by
+// tests/workspace_browser.rs:  node workspace.mjs GROVE DATA PLAN.json OUTDIR
+// It writes OUTDIR/result.json (+ the painted maps) for the Rust side to check against the
+// label files on disk, and screenshots OUTDIR/*.png (docs/workspace-*.png with
+// GROVE_UPDATE_DOCS=1).
+import { spawn } from 'node:child_process';
+import { readFileSync, writeFileSync, copyFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { launch } from './lib.mjs';
+
+const [grove, data, planPath, out] = process.argv.slice(2);
+const plan = JSON.parse(readFileSync(planPath, 'utf8'));
+const docs = process.env.GROVE_UPDATE_DOCS ? join(process.cwd(), '../../docs') : null;
+const t0 = Date.now();
+const log = (...a) => console.log(`[${((Date.now() - t0) / 1000).toFixed(1)} s]`, ...a);
+function check(ok, what) { if (!ok) throw new Error(`check failed: ${what}`); }
+
+function startServer() {
+  const p = spawn(grove, ['label', data], { stdio: ['ignore', 'pipe', 'inherit'] });
+  const url = new Promise((resolve, reject) => {
+    let text = '';
+    p.stdout.on('data', (d) => { text += d; const m = text.match(/http:\/\/\S+token=\w+/); if (m) resolve(m[0]); });
+    p.on('exit', (c) => reject(new Error(`grove label exited with ${c}: ${text}`)));
+  });
+  return { p, url };
+}
+
+const problems = [];
+let server = startServer();
+let url = await server.url;
+const ctx = await launch({ width: 1180, height: 860 });
+const page = ctx.pages()[0] || await ctx.newPage();
+let killed = false;
+page.on('console', (m) => { if (m.type() === 'error' && !killed) problems.push(`console: ${m.text()}`); });
+page.on('pageerror', (e) => problems.push(`page error: ${e.message}`));
+page.on('dialog', (d) => { problems.push(`dialog opened: ${d.message()} (script injection?)`); d.dismiss(); });
+
+async function shot(name) {
+  await page.waitForTimeout(150);
+  const path = join(out, `${name}.png`);
+  await page.screenshot({ path });
+  if (docs && /^workspace-[125]/.test(name)) copyFileSync(path, join(docs, `${name}.png`));
+}
+const saved = () => page.waitForFunction(() => document.getElementById('save-state').dataset.state === 'saved' && !S.img.dirty);
+
+// Image coordinates → page coordinates through the page's own view transform.
+async function toPage(x, y) {
+  const v = await page.evaluate(() => ({ ...S.view }));
+  const box = await page.locator('#view').boundingBox();
+  return [box.x + v.ox + x * v.scale, box.y + v.oy + y * v.scale];
+}
+
+async function paintStroke(s) {
+  await page.keyboard.press(String(s.class + 1));
+  await page.evaluate((size) => { const r = document.getElementById('brush-size'); r.value = String(size); r.dispatchEvent(new Event('input')); }, s.size);
+  const pts = [];
+  for (const [x, y] of s.points) pts.push(await toPage(x + 0.5, y + 0.5));
+  await page.mouse.move(pts[0][0], pts[0][1]);
+  await page.mouse.down();
+  for (let k = 1; k < pts.length; k++) {
+    await page.mouse.move(pts[k][0], pts[k][1], { steps: 6 });
+  }
+  await page.mouse.up();
+}
+
+async function openImage(name) {
+  await page.locator(`#image-list li[data-name="${name}"]`).click();
+  await page.waitForFunction((n) => S.img && S.img.name === n, name);
+}
+
+const painted = {};
+let dumpCount = 0;
+async function dumpLabels(name) {
+  const b64 = await page.evaluate(() => {
+    let s = ''; const L = S.img.labels;
+    for (let i = 0; i < L.length; i += 0x8000) s += String.fromCharCode.apply(null, L.subarray(i, i + 0x8000));
+    return btoa(s);
+  });
+  const file = `painted-${dumpCount++}.bin`;
+  writeFileSync(join(out, file), Buffer.from(b64, 'base64'));
+  painted[name] = file;
+}
+
+// 1. Open the workspace from the printed URL; make the class table in the page.
+await page.goto(url);
+await page.waitForSelector('#image-list li');
+check(await page.evaluate(() => !location.search.includes('token')), 'token dropped from the address bar');
+for (const c of [...plan.classes, { name: plan.hostile_class, color: '#ff00ff' }]) {
+  await page.fill('#class-name', c.name);
+  await page.fill('#class-colour', c.color);
+  await page.click('#class-add button');
+  await page.waitForFunction((n) => S.classes.some((k) => k.name === n), c.name);
+}
+const names = await page.$$eval('#class-list .cname', (inputs) => inputs.map((i) => i.value));
+check(names[5] === plan.hostile_class, 'hostile class name shown as typed');
+check(await page.evaluate(() => document.querySelectorAll('body img, body script:not([src])').length === 0), 'no element injected through names');
+const listed = await page.$$eval('#image-list .name', (n) => n.map((e) => e.textContent));
+check(listed.includes('<img src=x onerror=alert(2)>'), 'hostile image name listed as text');
+log('classes made');
+
+// 2. Paint the planned strokes on three images; undo/redo on the first.
+const labelledImages = plan.images.slice(0, 3);
+for (const [k, im] of labelledImages.entries()) {
+  await openImage(im.image);
+  for (const s of im.strokes) await paintStroke(s);
+  if (k === 0) {
+    const before = await page.evaluate(() => S.img.labels.filter((v) => v !== 255).length);
+    await page.keyboard.press('Control+z');
+    const undone = await page.evaluate(() => S.img.labels.filter((v) => v !== 255).length);
+    await page.keyboard.press('Control+y');
+    const redone = await page.evaluate(() => S.img.labels.filter((v) => v !== 255).length);
+    check(undone < before && redone === before, `undo/redo (${before} → ${undone} → ${redone})`);
+    await shot('workspace-1-paint');
+  }
+  await saved();
+  await dumpLabels(im.image);
+}
+log('painted and saved', Object.keys(painted).length, 'images');
+
+// 3. Brush response and zoom/pan on a 4000 × 3000 image.
+await openImage('big_field');
+await page.waitForFunction(() => [...S.tiles.values()].some((t) => t.ok));
+await page.evaluate(() => { groveStats.stroke.length = 0; groveStats.frame.length = 0; });
+const box = await page.locator('#view').boundingBox();
+const cx = box.x + box.width / 2, cy = box.y + box.height / 2;
+for (let k = 0; k < 8; k++) { await page.mouse.move(cx + k * 5, cy); await page.mouse.wheel(0, -240); await page.waitForTimeout(40); }
+await page.mouse.move(cx, cy);
+await page.mouse.down({ button: 'right' });
+await page.mouse.move(cx - 200, cy - 120, { steps: 12 });
+await page.mouse.up({ button: 'right' });
+await page.keyboard.press('f');
+await page.waitForTimeout(300);
+await page.keyboard.press('2');
+await page.evaluate(() => { const r = document.getElementById('brush-size'); r.value = '60'; r.dispatchEvent(new Event('input')); });
+await page.mouse.move(cx - 150, cy);
+await page.mouse.down();
+await page.mouse.move(cx + 150, cy + 60, { steps: 40 });
+await page.mouse.up();
+const stats = await page.evaluate(() => {
+  const q = (a, p) => { const s = [...a].sort((x, y) => x - y); return s.length ? s[Math.min(s.length - 1, Math.floor(p * s.length))] : null; };
+  return { strokes: groveStats.stroke.length, stroke_p50: q(groveStats.stroke, 0.5), stroke_p95: q(groveStats.stroke, 0.95), stroke_max: Math.max(...groveStats.stroke), frames: groveStats.frame.length, frame_p50: q(groveStats.frame, 0.5), frame_p95: q(groveStats.frame, 0.95) };
+});
+log('4000x3000:', JSON.stringify(stats));
+check(stats.stroke_p95 < 16, `brush stroke handler p95 ${stats.stroke_p95} ms < 16 ms`);
+await saved();
+await page.keyboard.press('Control+z');
+await saved();
+
+// 4. Train from the page; the page stays usable (open another image meanwhile).
+const trainStart = Date.now();
+await page.click('#train');
+await page.waitForFunction(() => S.training);
+await openImage(plan.images[3].image);
+await page.waitForFunction(() => /trained on/.test(document.getElementById('train-state').textContent), null, { timeout: 60000 });
+const trainSeconds = await page.evaluate(() => Number((document.getElementById('train-state').textContent.match(/in ([\d.]+) s/) || [])[1]));
+log(`trained (server ${trainSeconds} s, page ${(Date.now() - trainStart) / 1000} s)`);
+await page.waitForFunction(() => S.img.layerImgs.prediction && S.img.layerImgs.prediction.complete && S.img.layerImgs.prediction.naturalWidth > 0);
+check(await page.locator('#layer-prediction').isChecked(), 'prediction layer shown');
+check(await page.locator('#scores td').count() > 0, 'scores shown');
+check((await page.locator('#scores .caveat').count()) > 0 || (await page.locator('#scores').textContent()).includes('by image'), 'score caveat or crossval shown');
+check(await page.locator('#areas tr').count() >= 2, 'areas shown');
+await shot('workspace-2-trained');
+const regions = await page.evaluate(() => S.layers.regions.length);
+if (regions > 0) {
+  await page.click('#next-region');
+  await shot('workspace-3-suggested');
+} else {
+  log('no suggested regions offered by the server');
+}
+
+// 5. Correct: paint this image's planned strokes over the prediction, retrain.
+await page.keyboard.press('f');
+for (const s of plan.images[3].strokes) await paintStroke(s);
+await saved();
+await dumpLabels(plan.images[3].image);
+await shot('workspace-4-correct');
+await page.click('#train');
+await page.waitForFunction(() => S.training);
+await page.waitForFunction(() => !S.training && S.model && S.model.images === 4, null, { timeout: 60000 });
+await page.waitForFunction(() => S.img.layerImgs.prediction && S.img.layerImgs.prediction.complete && S.layers.gen >= 2);
+await shot('workspace-5-retrained');
+log('corrected and retrained');
+
+// 6. Kill the server mid-session and start it again: everything saved is there.
+await openImage(plan.images[4].image);
+await paintStroke(plan.images[4].strokes[0]);
+await saved();
+await dumpLabels(plan.images[4].image);
+const extra = [plan.images[4].image];
+killed = true;
+server.p.kill('SIGKILL');
+await new Promise((r) => server.p.once('exit', r));
+await paintStroke(plan.images[4].strokes[1] || plan.images[4].strokes[0]);
+await page.waitForFunction(() => ['offline', 'saving'].includes(document.getElementById('save-state').dataset.state), null, { timeout: 10000 });
+const offline = await page.locator('#save-state').textContent();
+log('after kill, page says:', offline);
+server = startServer();
+url = await server.url;
+killed = false;
+page.removeAllListeners('dialog');
+page.on('dialog', (d) => d.accept()); // the "leave with unsaved changes?" prompt
+await page.goto(url);
+await page.waitForSelector('#image-list li');
+for (const [name, file] of Object.entries(painted)) {
+  await openImage(name);
+  const same = await page.evaluate(async (b64) => {
+    const want = Uint8Array.from(atob(b64), (c) => c.charCodeAt(0));
+    const L = S.img.labels;
+    return want.length === L.length && want.every((v, i) => v === L[i]);
+  }, readFileSync(join(out, file)).toString('base64'));
+  check(same, `${name}: saved labels back after the restart`);
+}
+log('restart: all saved labels are back');
+await ctx.close();
+server.p.kill();
+
+check(problems.length === 0, `no console errors, page errors or dialogs: ${problems.join('; ')}`);
+writeFileSync(join(out, 'result.json'), JSON.stringify({ painted, extra_strokes: extra, stats, train_seconds: trainSeconds, offline_message: offline, regions }, null, 1));
+log('done');

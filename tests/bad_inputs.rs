@@ -619,7 +619,7 @@ fn table_model_file_problems() {
     let out = t.path().join("o");
     let img = root.join("images/a.png");
     let bad = t.path().join("bad.grove");
-    let mut check = |content: &[u8], needle: &str| {
+    let check = |content: &[u8], needle: &str| {
         std::fs::write(&bad, content).unwrap();
         apply_one(&bad, &img, &out, 4, &["bad.grove", needle]);
     };

@@ -5,6 +5,7 @@ mod demo;
 mod eval;
 mod info;
 mod merge_areas;
+mod suggest;
 mod train;
 
 use clap::{Parser, Subcommand};
@@ -53,6 +54,11 @@ enum Command {
         after_help = "Example:\n  grove merge-areas maps/shard-*-of-8 --out maps/areas.csv"
     )]
     MergeAreas(merge_areas::MergeAreasArgs),
+    /// Rank images by how much labelling them would help, and outline their unsure regions.
+    #[command(
+        after_help = "Example:\n  grove suggest fields.grove fields/ new-flights/ --top 5 --out next/ --json next.json\n\nPixels already labelled (a dataset folder's labels/, or --labels DIR) are never suggested."
+    )]
+    Suggest(suggest::SuggestArgs),
     /// Show what a model file holds: classes, training images, settings, top features.
     Info(info::InfoArgs),
 }
@@ -91,6 +97,7 @@ pub fn run() -> i32 {
         Command::Demo(a) => demo::run(a, progress),
         Command::Info(a) => info::run(a),
         Command::MergeAreas(a) => merge_areas::run(a),
+        Command::Suggest(a) => suggest::run(a, progress),
     }))
     .unwrap_or_else(|_| {
         Err(GroveError::Internal(
@@ -118,7 +125,7 @@ pub struct LabelArgs {
 }
 
 impl LabelArgs {
-    fn options(&self) -> crate::dataset::LabelOptions {
+    pub(crate) fn options(&self) -> crate::dataset::LabelOptions {
         crate::dataset::LabelOptions {
             unlabelled_value: self.unlabelled_value,
             unknown_as_unlabelled: self.unknown_as_unlabelled,

@@ -4,5 +4,7 @@
 pub mod areas;
 pub mod confusion;
 pub mod score;
+pub mod suggest;
+pub mod uncertainty;
 
 pub use confusion::ConfusionMatrix;

@@ -342,7 +342,245 @@ fn main() {
     }
 }
 
+const ROUNDS: usize = 6;
+const BUDGET: usize = 1500;
+const PATCH: usize = 16;
+const SEEDS: u64 = 5;
+
+/// One measurement: strategy, seed, round, labelled pixels in the pool, hold-out mean IoU.
+struct Point {
+    strategy: &'static str,
+    seed: u64,
+    round: usize,
+    labelled: usize,
+    miou: f64,
+}
+
+/// Adds up to `BUDGET` ground-truth pixels where `suggest` points: regions of all pool
+/// images ranked together by their score, most unsure pixels first, at most a quarter of the
+/// budget per region on the first pass.
+fn add_suggested(model: &Segmenter, pool: &[Scene], labels: &mut [Vec<u8>]) {
+    let names = model.classes.names();
+    let mut regions = Vec::new();
+    for (i, s) in pool.iter().enumerate() {
+        let probs = model.predict_proba(&s.image);
+        let known: Vec<bool> = labels[i].iter().map(|&c| c != UNLABELLED).collect();
+        let sug = suggest_image(
+            &s.name,
+            &probs,
+            Some(&known),
+            &names,
+            &SuggestConfig::default(),
+        );
+        regions.extend(sug.regions.into_iter().map(|r| (i, r)));
+    }
+    regions.sort_by(|a, b| b.1.score.total_cmp(&a.1.score));
+    let mut left = BUDGET;
+    for cap in [BUDGET / 4, BUDGET] {
+        for (i, r) in &regions {
+            let mut taken = 0;
+            for &p in &r.members {
+                if left == 0 || taken == cap {
+                    break;
+                }
+                if labels[*i][p as usize] == UNLABELLED {
+                    labels[*i][p as usize] = pool[*i].truth[p as usize];
+                    taken += 1;
+                    left -= 1;
+                }
+            }
+        }
+    }
+}
+
+/// Adds `BUDGET` ground-truth pixels in random `PATCH`² squares anywhere in the pool.
+fn add_random(pool: &[Scene], labels: &mut [Vec<u8>], rng: &mut ChaCha8Rng) {
+    let mut left = BUDGET;
+    let mut tries = 0;
+    while left > 0 && tries < 10_000 {
+        tries += 1;
+        let i = rng.gen_range(0..pool.len());
+        let (w, h) = (pool[i].image.width, pool[i].image.height);
+        let (x0, y0) = (rng.gen_range(0..w - PATCH), rng.gen_range(0..h - PATCH));
+        for y in y0..y0 + PATCH {
+            for x in x0..x0 + PATCH {
+                let p = y * w + x;
+                if left > 0 && labels[i][p] == UNLABELLED {
+                    labels[i][p] = pool[i].truth[p];
+                    left -= 1;
+                }
+            }
+        }
+    }
+}
+
 fn experiment() {
-    let _ = (suggest_image, SuggestConfig::default());
-    todo!()
+    let table = demo_table();
+    let work = scratch("experiment");
+    let mut points = Vec::new();
+    for seed in 0..SEEDS {
+        let pool = demo_scenes(100 + seed, 0..10, 192);
+        let holdout = demo_scenes(100 + seed, 10..15, 192);
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let start: Vec<Vec<u8>> = pool
+            .iter()
+            .enumerate()
+            .map(|(i, s)| {
+                if i < 3 {
+                    scribbles(s, table.len(), 3, &mut rng)
+                } else {
+                    vec![UNLABELLED; s.truth.len()]
+                }
+            })
+            .collect();
+        for strategy in ["suggest", "random"] {
+            let mut labels = start.clone();
+            let mut rng = ChaCha8Rng::seed_from_u64(1000 + seed);
+            for round in 0..=ROUNDS {
+                let model = train(&work, &table, &pool, &labels, seed);
+                let labelled = labels
+                    .iter()
+                    .flatten()
+                    .filter(|&&c| c != UNLABELLED)
+                    .count();
+                let miou = mean_iou(&model, &holdout);
+                eprintln!("seed {seed} {strategy:<7} round {round}: {labelled:>6} px labelled, hold-out mean IoU {miou:.4}");
+                points.push(Point {
+                    strategy,
+                    seed,
+                    round,
+                    labelled,
+                    miou,
+                });
+                if round < ROUNDS {
+                    match strategy {
+                        "suggest" => add_suggested(&model, &pool, &mut labels),
+                        _ => add_random(&pool, &mut labels, &mut rng),
+                    }
+                }
+            }
+        }
+    }
+    let out = scratch("");
+    let mut csv = String::from("strategy,seed,round,labelled_pixels,mean_iou\n");
+    for p in &points {
+        csv += &format!(
+            "{},{},{},{},{:.4}\n",
+            p.strategy, p.seed, p.round, p.labelled, p.miou
+        );
+    }
+    std::fs::write(out.join("results.csv"), csv).unwrap();
+    let mean = |strategy: &str, round: usize| {
+        let v: Vec<&Point> = points
+            .iter()
+            .filter(|p| p.strategy == strategy && p.round == round)
+            .collect();
+        let n = v.len() as f64;
+        let m = v.iter().map(|p| p.miou).sum::<f64>() / n;
+        let sd = (v.iter().map(|p| (p.miou - m).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
+        (v.iter().map(|p| p.labelled as f64).sum::<f64>() / n, m, sd)
+    };
+    println!("round | suggest: labelled px, mean IoU ± sd | random: labelled px, mean IoU ± sd");
+    for r in 0..=ROUNDS {
+        let (a, b) = (mean("suggest", r), mean("random", r));
+        println!(
+            "{r:>5} | {:>8.0} {:.4} ± {:.4} | {:>8.0} {:.4} ± {:.4}",
+            a.0, a.1, a.2, b.0, b.1, b.2
+        );
+    }
+    let (rand_px, rand_final, _) = mean("random", ROUNDS);
+    match (0..=ROUNDS).find(|&r| mean("suggest", r).1 >= rand_final) {
+        Some(r) => {
+            let px = mean("suggest", r).0;
+            println!(
+                "suggest reaches random's final mean IoU {rand_final:.4} ({rand_px:.0} px) at round {r} with {px:.0} px: {:.0} % of random's labelled pixels ({} of the bar of at most 50 %)",
+                100.0 * px / rand_px,
+                if px <= 0.5 * rand_px { "meets" } else { "misses" }
+            );
+        }
+        None => println!(
+            "suggest does not reach random's final mean IoU {rand_final:.4} within {ROUNDS} rounds (its final: {:.4})",
+            mean("suggest", ROUNDS).1
+        ),
+    }
+    std::fs::write(out.join("active_learning.svg"), plot(&points)).unwrap();
+    println!("wrote {}", out.join("active_learning.svg").display());
+}
+
+/// Mean IoU against labelled pixels, one thin line per seed and a thick mean line per
+/// strategy (colour-blind-safe blue / orange).
+fn plot(points: &[Point]) -> String {
+    let (w, h, l, r, t, b) = (640.0, 400.0, 64.0, 16.0, 36.0, 48.0);
+    let xmax = points.iter().map(|p| p.labelled).max().unwrap() as f64 * 1.05;
+    let ymin = (points.iter().map(|p| p.miou).fold(1.0, f64::min) * 20.0).floor() / 20.0;
+    let ymax = (points.iter().map(|p| p.miou).fold(0.0, f64::max) * 20.0).ceil() / 20.0;
+    let sx = |x: f64| l + x / xmax * (w - l - r);
+    let sy = |y: f64| h - b - (y - ymin) / (ymax - ymin) * (h - t - b);
+    let mut svg = format!(
+        "<svg xmlns=\"http://www.w3.org/2000/svg\" width=\"{w}\" height=\"{h}\" font-family=\"sans-serif\" font-size=\"12\">\n<rect width=\"100%\" height=\"100%\" fill=\"white\"/>\n<text x=\"{l}\" y=\"20\" font-size=\"14\">Hold-out mean IoU vs labelled pixels (demo scenes, {SEEDS} seeds, {BUDGET} px per round)</text>\n"
+    );
+    for i in 0..=5 {
+        let y = ymin + (ymax - ymin) * i as f64 / 5.0;
+        svg += &format!("<line x1=\"{l}\" x2=\"{x2}\" y1=\"{yy:.1}\" y2=\"{yy:.1}\" stroke=\"#ddd\"/><text x=\"{tx}\" y=\"{ty:.1}\" text-anchor=\"end\">{y:.2}</text>\n", x2 = w - r, yy = sy(y), tx = l - 6.0, ty = sy(y) + 4.0);
+        let x = xmax * i as f64 / 5.0;
+        svg += &format!(
+            "<text x=\"{:.1}\" y=\"{}\" text-anchor=\"middle\">{:.0}k</text>\n",
+            sx(x),
+            h - b + 16.0,
+            x / 1000.0
+        );
+    }
+    svg += &format!(
+        "<text x=\"{}\" y=\"{}\" text-anchor=\"middle\">labelled pixels in the pool</text>\n",
+        (l + w - r) / 2.0,
+        h - 10.0
+    );
+    for (k, (strategy, colour)) in [("suggest", "#0072b2"), ("random", "#e69f00")]
+        .iter()
+        .enumerate()
+    {
+        let line = |pts: Vec<(f64, f64)>, width: f64, opacity: f64| {
+            let d: Vec<String> = pts
+                .iter()
+                .map(|&(x, y)| format!("{:.1},{:.1}", sx(x), sy(y)))
+                .collect();
+            format!("<polyline fill=\"none\" stroke=\"{colour}\" stroke-width=\"{width}\" opacity=\"{opacity}\" points=\"{}\"/>\n", d.join(" "))
+        };
+        for seed in 0..SEEDS {
+            let pts = points
+                .iter()
+                .filter(|p| p.strategy == *strategy && p.seed == seed)
+                .map(|p| (p.labelled as f64, p.miou))
+                .collect();
+            svg += &line(pts, 1.0, 0.35);
+        }
+        let means: Vec<(f64, f64)> = (0..=ROUNDS)
+            .map(|round| {
+                let v: Vec<&Point> = points
+                    .iter()
+                    .filter(|p| p.strategy == *strategy && p.round == round)
+                    .collect();
+                let n = v.len() as f64;
+                (
+                    v.iter().map(|p| p.labelled as f64).sum::<f64>() / n,
+                    v.iter().map(|p| p.miou).sum::<f64>() / n,
+                )
+            })
+            .collect();
+        for &(x, y) in &means {
+            svg += &format!(
+                "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"3.5\" fill=\"{colour}\"/>\n",
+                sx(x),
+                sy(y)
+            );
+        }
+        svg += &line(means, 3.0, 1.0);
+        let label = if *strategy == "suggest" {
+            "where suggest points (mean)"
+        } else {
+            "random 16x16 patches (mean)"
+        };
+        svg += &format!("<rect x=\"{}\" y=\"{}\" width=\"14\" height=\"4\" fill=\"{colour}\"/><text x=\"{}\" y=\"{}\">{label}</text>\n", w - 230.0, h - b - 40.0 + k as f64 * 18.0, w - 210.0, h - b - 35.0 + k as f64 * 18.0);
+    }
+    svg + "</svg>\n"
 }

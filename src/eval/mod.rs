@@ -1,6 +1,7 @@
 //! Evaluation of predicted label maps against ground truth, and what follows from the maps:
 //! area figures.
 
+pub mod area_estimate;
 pub mod areas;
 pub mod confusion;
 pub mod score;

@@ -3,7 +3,8 @@
 //! the image, and on request a confidence map and per-class probability maps.
 //!
 //! Layout under the output folder: `labels/STEM.png`, `overlays/STEM.png`,
-//! `confidence/STEM.png`, `probabilities/STEM/CLASS.png`.
+//! `confidence/STEM.png`, `uncertainty/{margin,entropy}/STEM.png`,
+//! `probabilities/STEM/CLASS.png`.
 
 pub mod stream;
 
@@ -20,6 +21,8 @@ pub struct OutputOptions {
     pub overlay: bool,
     pub confidence: bool,
     pub probabilities: bool,
+    /// Margin and entropy maps (see `eval::uncertainty`).
+    pub uncertainty: bool,
     /// Weight of the class colour in the overlay (0 = image only, 1 = colours only).
     pub overlay_opacity: f32,
 }
@@ -30,6 +33,7 @@ impl Default for OutputOptions {
             overlay: true,
             confidence: false,
             probabilities: false,
+            uncertainty: false,
             overlay_opacity: 0.45,
         }
     }
@@ -64,6 +68,8 @@ pub struct OutputPaths {
     pub labels: PathBuf,
     pub overlay: Option<PathBuf>,
     pub confidence: Option<PathBuf>,
+    /// Margin and entropy maps.
+    pub uncertainty: Option<[PathBuf; 2]>,
     /// One per class, in class-table order.
     pub probabilities: Vec<PathBuf>,
 }
@@ -78,6 +84,9 @@ impl OutputPaths {
             labels: in_sub("labels"),
             overlay: opts.overlay.then(|| in_sub("overlays")),
             confidence: opts.confidence.then(|| in_sub("confidence")),
+            uncertainty: opts
+                .uncertainty
+                .then(|| [in_sub("uncertainty/margin"), in_sub("uncertainty/entropy")]),
             probabilities: if opts.probabilities {
                 classes
                     .classes()
@@ -95,6 +104,7 @@ impl OutputPaths {
         let mut v = vec![self.labels.as_path()];
         v.extend(self.overlay.as_deref());
         v.extend(self.confidence.as_deref());
+        v.extend(self.uncertainty.iter().flatten().map(PathBuf::as_path));
         v.extend(self.probabilities.iter().map(PathBuf::as_path));
         v
     }
@@ -132,6 +142,13 @@ pub fn write_outputs(
     if let Some(path) = &paths.confidence {
         let conf: Vec<u8> = probs.confidence().into_iter().map(to_u8).collect();
         write_grey_png(path, w, h, &conf)?;
+    }
+    if let Some([margin, entropy]) = &paths.uncertainty {
+        let maps = crate::eval::uncertainty::UncertaintyMaps::new(probs);
+        for (path, map) in [(margin, &maps.margin), (entropy, &maps.entropy)] {
+            let bytes: Vec<u8> = map.iter().map(|&v| to_u8(v)).collect();
+            write_grey_png(path, w, h, &bytes)?;
+        }
     }
     for (c, path) in paths.probabilities.iter().enumerate() {
         let p: Vec<u8> = probs.class_plane(c).data.into_iter().map(to_u8).collect();

@@ -322,6 +322,35 @@ impl Segmenter {
     /// excerpt `at.window` of a larger image. Exact where `core` keeps
     /// [`FeatureExtractor::halo`] pixels from every window edge that is not an image edge.
     pub fn predict_core(&self, window: &RasterImage, at: &Placement, core: &Rect) -> Probabilities {
+        self.walk_core(window, at, core, |rows, out| {
+            self.forest.predict_proba_into(rows, out)
+        })
+    }
+
+    /// Per-pixel tree votes of a whole image (fraction of trees putting each class first; see
+    /// `RandomForest::predict_votes_into`), in the layout of `predict_proba`. Untiled: it is
+    /// for measuring the trees' disagreement, not for delivery.
+    pub fn predict_votes(&self, image: &RasterImage) -> Probabilities {
+        let (w, h) = (image.width, image.height);
+        self.walk_core(
+            image,
+            &Placement::whole(w, h),
+            &Rect::whole(w, h),
+            |rows, out| self.forest.predict_votes_into(rows, out),
+        )
+    }
+
+    /// Features of `window`, then `walk` over blocks of the rows of `core`'s pixels.
+    fn walk_core<W>(
+        &self,
+        window: &RasterImage,
+        at: &Placement,
+        core: &Rect,
+        walk: W,
+    ) -> Probabilities
+    where
+        W: Fn(&[f32], &mut [f32]) + Sync,
+    {
         let stack = self.features.features_at(window, at);
         let (f, k) = (stack.n_features(), self.classes.len());
         let mut data = vec![0.0f32; core.area() * k];
@@ -331,7 +360,7 @@ impl Segmenter {
                 let rows = out.len() / k;
                 let mut buf = vec![0.0f32; rows * f];
                 stack.rect_rows_into(core, b * BLOCK, &mut buf);
-                self.forest.predict_proba_into(&buf, out);
+                walk(&buf, out);
             });
         Probabilities {
             width: core.width,

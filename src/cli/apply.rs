@@ -29,6 +29,11 @@ pub struct ApplyArgs {
     /// Also write the confidence map (winning class probability, 0–255): dark = unsure.
     #[arg(long)]
     pub confidence: bool,
+    /// Also write uncertainty maps: uncertainty/margin/ (gap between the two most probable
+    /// classes × 255: dark = unsure) and uncertainty/entropy/ (normalised entropy × 255:
+    /// bright = unsure).
+    #[arg(long)]
+    pub uncertainty: bool,
     /// Also write one probability map per class.
     #[arg(long)]
     pub probabilities: bool,
@@ -165,6 +170,7 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
             overlay: !args.no_overlay,
             confidence: args.confidence,
             probabilities: args.probabilities,
+            uncertainty: args.uncertainty,
             overlay_opacity: args.opacity,
         },
         shard: args.shard,

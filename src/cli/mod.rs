@@ -1,11 +1,13 @@
 //! Command-line layer: parsing, thread setup, error printing. One file per command.
 
 mod apply;
+mod areas;
 mod demo;
 mod eval;
 mod info;
 mod label;
 mod merge_areas;
+mod suggest;
 mod train;
 
 use clap::{Parser, Subcommand};
@@ -54,6 +56,16 @@ enum Command {
         after_help = "Example:\n  grove merge-areas maps/shard-*-of-8 --out maps/areas.csv"
     )]
     MergeAreas(merge_areas::MergeAreasArgs),
+    /// Error-adjusted class areas with 95 % intervals, from apply's maps and reference labels.
+    #[command(
+        after_help = "Example:\n  grove areas maps/ --reference checked/ --pixel-size 0.05m --json areas-estimate.json\n\nStratified estimator of Olofsson et al. (2013, 2014). These are estimates: a qualified person should check them."
+    )]
+    Areas(areas::AreasArgs),
+    /// Rank images by how much labelling them would help, and outline their unsure regions.
+    #[command(
+        after_help = "Example:\n  grove suggest fields.grove fields/ new-flights/ --top 5 --out next/ --json next.json\n\nPixels already labelled (a dataset folder's labels/, or --labels DIR) are never suggested."
+    )]
+    Suggest(suggest::SuggestArgs),
     /// Show what a model file holds: classes, training images, settings, top features.
     Info(info::InfoArgs),
     /// Label, train and review in the browser: a local workspace over a dataset folder.
@@ -98,6 +110,8 @@ pub fn run() -> i32 {
         Command::Info(a) => info::run(a),
         Command::MergeAreas(a) => merge_areas::run(a),
         Command::Label(a) => label::run(a),
+        Command::Suggest(a) => suggest::run(a, progress),
+        Command::Areas(a) => areas::run(a),
     }))
     .unwrap_or_else(|_| {
         Err(GroveError::Internal(
@@ -125,7 +139,7 @@ pub struct LabelArgs {
 }
 
 impl LabelArgs {
-    fn options(&self) -> crate::dataset::LabelOptions {
+    pub(crate) fn options(&self) -> crate::dataset::LabelOptions {
         crate::dataset::LabelOptions {
             unlabelled_value: self.unlabelled_value,
             unknown_as_unlabelled: self.unknown_as_unlabelled,

@@ -66,6 +66,28 @@ pub fn read_labels(path: &Path, table: &ClassTable, opts: &LabelOptions) -> Resu
     })
 }
 
+/// As [`read_labels`], for an image of `size` (width, height): a label file of another
+/// size is an error naming it.
+pub fn read_labels_for(
+    path: &Path,
+    table: &ClassTable,
+    opts: &LabelOptions,
+    size: (usize, usize),
+) -> Result<LabelMap> {
+    // Header first: a label that declares another size is refused before it is decoded.
+    let declared = crate::imageio::probe_label_png(path)?;
+    if declared != size {
+        return Err(GroveError::input(
+            path,
+            format!(
+                "label size {}x{} differs from image size {}x{}",
+                declared.0, declared.1, size.0, size.1
+            ),
+        ));
+    }
+    read_labels(path, table, opts)
+}
+
 /// Maps raw label pixels to class indices; the error lists what is wrong and where.
 pub fn decode(
     pixels: &LabelPixels,

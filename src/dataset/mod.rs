@@ -9,7 +9,7 @@ pub mod save;
 use std::path::{Path, PathBuf};
 
 pub use classes::{ClassInfo, ClassTable};
-pub use labels::{LabelMap, LabelOptions, UNLABELLED};
+pub use labels::{read_labels_for, LabelMap, LabelOptions, UNLABELLED};
 
 use crate::error::{GroveError, Result};
 use crate::imageio::{has_image_extension, probe_image, read_image, ImageHeader, RasterImage};
@@ -191,31 +191,12 @@ impl Dataset {
             .labels
             .as_ref()
             .ok_or_else(|| GroveError::input(&entry.image, "image has no label file"))?;
-        // Header first: a label that declares another size is refused before it is decoded.
-        let declared = crate::imageio::probe_label_png(label_path)?;
-        let labels = if declared == size {
-            self.read_labels(label_path)?
-        } else {
-            LabelMap {
-                width: declared.0,
-                height: declared.1,
-                indices: Vec::new(),
+        read_labels_for(label_path, &self.classes, &self.label_options, size).map_err(|e| match e {
+            GroveError::Input { path, message } => {
+                GroveError::input(path, format!("{message} ({})", entry.image.display()))
             }
-        };
-        if (labels.width, labels.height) != size {
-            return Err(GroveError::input(
-                label_path,
-                format!(
-                    "label size {}x{} differs from image size {}x{} ({})",
-                    labels.width,
-                    labels.height,
-                    size.0,
-                    size.1,
-                    entry.image.display()
-                ),
-            ));
-        }
-        Ok(labels)
+            other => other,
+        })
     }
 
     pub fn read_labels(&self, path: &Path) -> Result<LabelMap> {

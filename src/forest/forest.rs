@@ -215,6 +215,35 @@ impl RandomForest {
             });
     }
 
+    /// Per row, the fraction of trees whose leaf puts each class first (row-major
+    /// `n × n_classes`, rows sum to 1): the trees' votes, as opposed to their averaged
+    /// probabilities. `1 − max` of a row is the trees' disagreement. Twice the work of
+    /// `predict_proba_into`'s walk plus one argmax per tree and row.
+    pub fn predict_votes_into(&self, x: &[f32], out: &mut [f32]) {
+        let (f, c) = (self.n_features, self.n_classes);
+        assert_eq!(x.len() % f, 0, "x.len() must be a multiple of n_features");
+        assert_eq!(
+            out.len(),
+            x.len() / f * c,
+            "out must hold n_rows × n_classes"
+        );
+        let scale = 1.0 / self.trees.len() as f32;
+        out.par_chunks_mut(PREDICT_BLOCK_ROWS * c)
+            .zip(x.par_chunks(PREDICT_BLOCK_ROWS * f))
+            .for_each(|(out_block, x_block)| {
+                out_block.fill(0.0);
+                let rows: Vec<u32> = (0..(x_block.len() / f) as u32).collect();
+                let mut leaf = vec![0.0f32; out_block.len()];
+                for tree in &self.trees {
+                    leaf.fill(0.0);
+                    tree.accumulate_rows(x_block, f, &rows, &mut leaf, c);
+                    for (o, l) in out_block.chunks_exact_mut(c).zip(leaf.chunks_exact(c)) {
+                        o[argmax(l) as usize] += scale;
+                    }
+                }
+            });
+    }
+
     /// Most probable class per row (ties go to the lower class index).
     pub fn predict(&self, x: &[f32]) -> Vec<u32> {
         self.predict_proba(x)

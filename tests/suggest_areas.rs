@@ -1,5 +1,6 @@
-//! `apply`'s area figures (areas.csv / areas.json) through the binary: counts agree with the
-//! label maps it wrote, the ROI restricts counting, and the pixel size gives areas.
+//! Through the binary: `apply`'s area figures (areas.csv / areas.json: counts agree with the
+//! label maps it wrote, the ROI restricts counting, the pixel size gives areas), its
+//! uncertainty maps, and `suggest`.
 
 use std::path::Path;
 use std::process::Command;
@@ -121,4 +122,102 @@ fn apply_writes_area_tables_that_match_its_label_maps() {
     assert!(!r.status.success());
     assert!(String::from_utf8_lossy(&r.stderr).contains("no ROI mask for image 'farm_002'"));
     assert!(!out3.exists());
+}
+
+#[test]
+fn uncertainty_maps_and_suggestions() {
+    let t = tempfile::tempdir().unwrap();
+    let root = t.path();
+    grove::demo::write_demo_dataset(&root.join("d"), 0..2, 96, 9).unwrap();
+    let model = root.join("m.grove");
+    ok(&[
+        "train",
+        &s(&root.join("d")),
+        "--model",
+        &s(&model),
+        "--trees",
+        "4",
+        "--textons",
+        "4",
+        "--quiet",
+    ]);
+    // A pool: one unlabelled copy of the scenes, one with the left half of its labels.
+    grove::demo::write_demo_dataset(&root.join("pool"), 2..5, 96, 9).unwrap();
+    let half = root.join("pool/labels/farm_003.png");
+    let classes = grove::dataset::ClassTable::load(&root.join("pool/classes.toml"), 255).unwrap();
+    let lab = grove::dataset::labels::read_labels(&half, &classes, &Default::default()).unwrap();
+    let ids: Vec<u8> = lab
+        .indices
+        .iter()
+        .enumerate()
+        .map(|(i, &c)| {
+            if i % 96 < 48 {
+                classes.classes()[c as usize].id
+            } else {
+                255
+            }
+        })
+        .collect();
+    grove::imageio::write_label_png(&half, 96, 96, &ids, &classes.palette()).unwrap();
+    for f in ["farm_002.png", "farm_004.png"] {
+        std::fs::remove_file(root.join("pool/labels").join(f)).unwrap();
+    }
+
+    let out = root.join("out");
+    ok(&[
+        "apply",
+        &s(&model),
+        &s(&root.join("pool")),
+        "--out",
+        &s(&out),
+        "--uncertainty",
+    ]);
+    for map in ["margin", "entropy"] {
+        let img = image::open(out.join("uncertainty").join(map).join("farm_002.png")).unwrap();
+        assert_eq!((img.width(), img.height()), (96, 96));
+    }
+
+    let json = root.join("s.json");
+    ok(&[
+        "suggest",
+        &s(&model),
+        &s(&root.join("pool")),
+        "--top",
+        "2",
+        "--out",
+        &s(&root.join("sug")),
+        "--json",
+        &s(&json),
+        "--threshold",
+        "0.2",
+    ]);
+    let v: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    let images = v["images"].as_array().unwrap();
+    assert_eq!(images.len(), 2);
+    assert!(images[0]["score"].as_f64().unwrap() >= images[1]["score"].as_f64().unwrap());
+    for im in images {
+        let name = im["image"].as_str().unwrap();
+        assert!(root.join("sug").join(format!("{name}.png")).is_file());
+        for r in im["regions"].as_array().unwrap() {
+            for key in ["x", "y", "width", "height", "pixels"] {
+                assert!(r[key].as_u64().is_some(), "{key}");
+            }
+            assert!(r["classes"].as_array().unwrap().len() >= 2);
+            if name == "farm_003" {
+                // The labelled left half is known: no region starts there.
+                assert!(r["x"].as_u64().unwrap() >= 48, "{r}");
+            }
+        }
+    }
+    let bad = grove(&[
+        "suggest",
+        &s(&model),
+        &s(&root.join("pool")),
+        "--out",
+        "x",
+        "--top",
+        "0",
+    ]);
+    assert!(String::from_utf8_lossy(&bad.stderr).contains("--top must be at least 1"));
 }

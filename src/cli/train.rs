@@ -114,14 +114,14 @@ pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
     println!("most informative features: {}", top.join(", "));
     if let Some(rank) = model.position_rank().filter(|&r| r < POSITION_WARN_RANK) {
         eprintln!(
-            "warning: a position feature is the number {} feature of {}; the model has learnt where classes happened to sit in these images, which rarely carries over to new ones. Unless every image shows the same place in the same framing, retrain without --position and compare with `grove crossval`",
+            "warning: a position feature is the number {} feature of {}; the model has learnt where classes happened to sit in these images, which rarely carries over to new ones. Unless every image shows the same place in the same framing, retrain without --position and compare held-out scores with `grove eval`",
             rank + 1,
             ranked.len()
         );
     }
     if let Some(oob) = p.oob_accuracy {
         println!("out-of-bag accuracy on sampled pixels: {oob:.4}");
-        println!("  this is optimistic: the trees are checked on pixels of the same images they learnt from, which look alike; a score on held-out images is the one to trust (grove crossval {} --folds 5, or grove eval on images not used for training)", args.data.display());
+        println!("  this is optimistic: the trees are checked on pixels of the same images they learnt from, which look alike; a score on held-out images is the one to trust (grove eval on labelled images not used for training)");
     }
     println!("model written to {}", args.model.display());
     println!(

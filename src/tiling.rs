@@ -26,10 +26,9 @@ use crate::features::stack::{Placement, Rect};
 use crate::imageio::RasterImage;
 use crate::segmenter::{Probabilities, Segmenter};
 
-/// Default tile side for `apply` and `eval` (pixels). Chosen by measurement on 2 cores
-/// (README, performance section): at 1024 the halo costs ~16 % extra feature work and a tile's
-/// feature stack (78 features) takes ~0.4 GB; 512 was slower (33 % halo overhead) and 2048
-/// needed ~1.4 GB per tile for ~7 % less work.
+/// Default tile side for `apply` and `eval` (pixels). Estimated, not yet measured: at 1024
+/// the halo adds ~16 % feature work (33 % at 512) and a tile's 78-feature stack is ~0.4 GB
+/// (~1.4 GB at 2048). A timed comparison of tile sizes is still to be done (issue 7).
 pub const DEFAULT_TILE: usize = 1024;
 
 /// Smallest accepted tile side: below this the halo dominates the work many times over.

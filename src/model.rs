@@ -13,8 +13,9 @@ use crate::imageio::write_atomic;
 use crate::segmenter::Segmenter;
 
 pub const MAGIC: &[u8; 8] = b"GROVE\x00MD";
-/// Bump when the serialised layout of `Segmenter` changes.
-pub const FORMAT_VERSION: u32 = 1;
+/// Bump when the serialised layout of `Segmenter` changes (and keep reading the old one).
+/// 2: the training profile (`eval::drift`).
+pub const FORMAT_VERSION: u32 = 2;
 const HEADER: usize = 8 + 4 + 8;
 /// Far above any real model (a 32-tree forest on 200k samples is tens of megabytes).
 const MAX_DECODED_BYTES: usize = 1 << 32;
@@ -88,8 +89,14 @@ pub fn from_bytes(bytes: &[u8]) -> std::result::Result<Segmenter, String> {
     // The limit caps what length prefixes inside the payload may claim, so a crafted file
     // cannot make the decoder try to allocate more than a model could ever need.
     let config = bincode::config::standard().with_limit::<MAX_DECODED_BYTES>();
-    let (model, used): (Segmenter, usize) = bincode::serde::decode_from_slice(payload, config)
-        .map_err(|e| format!("model payload cannot be read: {e}"))?;
+    let decoded = if version == 1 {
+        bincode::serde::decode_from_slice::<SegmenterV1, _>(payload, config)
+            .map(|(m, used)| (m.into(), used))
+    } else {
+        bincode::serde::decode_from_slice::<Segmenter, _>(payload, config)
+    };
+    let (model, used): (Segmenter, usize) =
+        decoded.map_err(|e| format!("model payload cannot be read: {e}"))?;
     if used != payload.len() {
         return Err("model payload has trailing bytes; the file is damaged".into());
     }
@@ -97,6 +104,27 @@ pub fn from_bytes(bytes: &[u8]) -> std::result::Result<Segmenter, String> {
         .check()
         .map_err(|e| format!("model is inconsistent ({e}); retrain it with this grove"))?;
     Ok(model)
+}
+
+/// The layout of format 1 (grove before the training profile), read into today's.
+#[derive(serde::Deserialize)]
+struct SegmenterV1 {
+    classes: crate::dataset::ClassTable,
+    features: crate::features::stack::FeatureExtractor,
+    forest: crate::forest::RandomForest,
+    provenance: crate::segmenter::Provenance,
+}
+
+impl From<SegmenterV1> for Segmenter {
+    fn from(m: SegmenterV1) -> Self {
+        Segmenter {
+            classes: m.classes,
+            features: m.features,
+            forest: m.forest,
+            provenance: m.provenance,
+            profile: None,
+        }
+    }
 }
 
 /// Writes a model atomically.

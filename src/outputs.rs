@@ -16,7 +16,7 @@ use crate::imageio::{output_path, write_grey_png, write_label_png, write_rgb_png
 use crate::segmenter::Probabilities;
 
 /// Which optional outputs to write (serialised into batch resume records).
-#[derive(Clone, Copy, Debug, serde::Serialize)]
+#[derive(Clone, Debug, serde::Serialize)]
 pub struct OutputOptions {
     pub overlay: bool,
     pub confidence: bool,
@@ -25,6 +25,24 @@ pub struct OutputOptions {
     pub uncertainty: bool,
     /// Weight of the class colour in the overlay (0 = image only, 1 = colours only).
     pub overlay_opacity: f32,
+    /// Class indices left untinted in overlays (`--no-tint`), sorted: a black background
+    /// class tinted grey would hide nothing but dim the image.
+    pub untinted: Vec<u8>,
+}
+
+impl OutputOptions {
+    /// The colour weight of each class in the overlay.
+    pub fn tint(&self, n_classes: usize) -> Vec<f32> {
+        (0..n_classes)
+            .map(|c| {
+                if self.untinted.contains(&(c as u8)) {
+                    0.0
+                } else {
+                    self.overlay_opacity
+                }
+            })
+            .collect()
+    }
 }
 
 impl Default for OutputOptions {
@@ -35,6 +53,7 @@ impl Default for OutputOptions {
             probabilities: false,
             uncertainty: false,
             overlay_opacity: 0.45,
+            untinted: Vec::new(),
         }
     }
 }
@@ -44,17 +63,17 @@ pub(crate) fn to_u8(v: f32) -> u8 {
     (v * 255.0).round().clamp(0.0, 255.0) as u8
 }
 
-/// Blends class colours over the image.
-pub fn overlay(
-    image: &RasterImage,
-    class_index: &[u8],
-    classes: &ClassTable,
-    opacity: f32,
-) -> Vec<u8> {
+/// Blends class colours over the image; `tint` is the colour weight of each class index
+/// (0 = that class shows the image as it is).
+pub fn overlay(image: &RasterImage, class_index: &[u8], classes: &ClassTable, tint: &[f32]) -> Vec<u8> {
     let mut rgb = image.to_rgb8();
     let colours: Vec<[u8; 3]> = classes.classes().iter().map(|c| c.color).collect();
     for (px, &c) in rgb.chunks_exact_mut(3).zip(class_index) {
         let col = colours[c as usize];
+        let opacity = tint[c as usize];
+        if opacity == 0.0 {
+            continue;
+        }
         for k in 0..3 {
             px[k] = (px[k] as f32 * (1.0 - opacity) + col[k] as f32 * opacity).round() as u8;
         }
@@ -136,7 +155,7 @@ pub fn write_outputs(
     let paths = OutputPaths::new(out_dir, stem, classes, opts);
     write_label_png(&paths.labels, w, h, &ids, &classes.palette())?;
     if let Some(path) = &paths.overlay {
-        let rgb = overlay(image, &index, classes, opts.overlay_opacity);
+        let rgb = overlay(image, &index, classes, &opts.tint(classes.len()));
         write_rgb_png(path, w, h, &rgb)?;
     }
     if let Some(path) = &paths.confidence {

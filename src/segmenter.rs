@@ -10,6 +10,7 @@ use serde::{Deserialize, Serialize};
 use crate::dataset::sample::{balanced_sample, uniform_sample};
 use crate::dataset::{ClassTable, Dataset, ImageEntry, UNLABELLED};
 use crate::error::{GroveError, Result};
+use crate::eval::drift::{FeatureMoments, TrainingProfile};
 use crate::features::bank::filter_bank_names;
 use crate::features::kmeans::KMeansConfig;
 use crate::features::stack::{gather_rows, FeatureConfig, FeatureExtractor, Placement, Rect};
@@ -79,6 +80,9 @@ pub struct Segmenter {
     pub features: FeatureExtractor,
     pub forest: RandomForest,
     pub provenance: Provenance,
+    /// What the training images looked like, for `apply`'s warnings about images unlike
+    /// them (None in models from before format 2).
+    pub profile: Option<TrainingProfile>,
 }
 
 /// Per-pixel class probabilities, pixel-major (`data[p * n_classes + c]`).
@@ -251,12 +255,17 @@ impl TrainConfig {
         let bar = progress.stage("features", n_images as u64);
         let n_features = extractor.n_features();
         let mut x: Vec<f32> = Vec::with_capacity(y.len() * n_features);
+        let mut sizes = Vec::with_capacity(n_images);
+        let mut moments = Vec::with_capacity(n_images);
         for ((e, pixels), cache) in entries.iter().zip(&forest_pixels).zip(cached) {
             let responses = match cache {
                 Some(r) => r,
                 None => extractor.responses(&read_image(&e.image)?),
             };
-            x.extend(extractor.stack(responses).gather_rows(pixels));
+            let stack = extractor.stack(responses);
+            x.extend(stack.gather_rows(pixels));
+            sizes.push((stack.width as u32, stack.height as u32));
+            moments.push(stack_moments(&stack));
             bar.inc(1);
         }
         bar.finish_and_clear();
@@ -288,8 +297,23 @@ impl TrainConfig {
             },
             features: extractor,
             forest,
+            profile: Some(TrainingProfile::from_images(sizes, &moments)),
         })
     }
+}
+
+/// The feature moments of a whole training image, taken as `predict_core` takes them.
+fn stack_moments(stack: &crate::features::stack::FeatureStack) -> FeatureMoments {
+    let f = stack.n_features();
+    let n = stack.width * stack.height;
+    let mut m = FeatureMoments::new(f);
+    let mut buf = vec![0.0f32; BLOCK * f];
+    for start in (0..n).step_by(BLOCK) {
+        let rows = BLOCK.min(n - start);
+        stack.rows_into(start, &mut buf[..rows * f]);
+        m.add_rows(&buf[..rows * f], f, start);
+    }
+    m
 }
 
 /// Now, in Unix seconds, unless `SOURCE_DATE_EPOCH` is set (the reproducible-builds
@@ -321,8 +345,17 @@ impl Segmenter {
     /// Class probabilities of the pixels `core` (in `window`'s coordinates) of `window`, the
     /// excerpt `at.window` of a larger image. Exact where `core` keeps
     /// [`FeatureExtractor::halo`] pixels from every window edge that is not an image edge.
-    pub fn predict_core(&self, window: &RasterImage, at: &Placement, core: &Rect) -> Probabilities {
-        self.walk_core(window, at, core, |rows, out| {
+    ///
+    /// With `moments`, the core pixels' features are added to it on the way (for
+    /// [`crate::eval::drift`]), at almost no cost.
+    pub fn predict_core(
+        &self,
+        window: &RasterImage,
+        at: &Placement,
+        core: &Rect,
+        moments: Option<&mut FeatureMoments>,
+    ) -> Probabilities {
+        self.walk_core(window, at, core, moments, |rows, out| {
             self.forest.predict_proba_into(rows, out)
         })
     }
@@ -336,6 +369,7 @@ impl Segmenter {
             image,
             &Placement::whole(w, h),
             &Rect::whole(w, h),
+            None,
             |rows, out| self.forest.predict_votes_into(rows, out),
         )
     }
@@ -346,6 +380,7 @@ impl Segmenter {
         window: &RasterImage,
         at: &Placement,
         core: &Rect,
+        moments: Option<&mut FeatureMoments>,
         walk: W,
     ) -> Probabilities
     where
@@ -353,15 +388,27 @@ impl Segmenter {
     {
         let stack = self.features.features_at(window, at);
         let (f, k) = (stack.n_features(), self.classes.len());
+        let want = moments.is_some();
         let mut data = vec![0.0f32; core.area() * k];
-        data.par_chunks_mut(BLOCK * k)
+        // Per-block moments merged in block order, so the sums do not depend on threads.
+        let blocks: Vec<Option<FeatureMoments>> = data
+            .par_chunks_mut(BLOCK * k)
             .enumerate()
-            .for_each(|(b, out)| {
+            .map(|(b, out)| {
                 let rows = out.len() / k;
                 let mut buf = vec![0.0f32; rows * f];
                 stack.rect_rows_into(core, b * BLOCK, &mut buf);
                 walk(&buf, out);
-            });
+                want.then(|| {
+                    let mut m = FeatureMoments::new(f);
+                    m.add_rows(&buf, f, b * BLOCK);
+                    m
+                })
+            })
+            .collect();
+        if let Some(total) = moments {
+            blocks.iter().flatten().for_each(|m| total.merge(m));
+        }
         Probabilities {
             width: core.width,
             height: core.height,

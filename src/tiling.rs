@@ -21,6 +21,7 @@
 //! Tiles are grouped in *bands* (one row of tiles), the unit a streaming reader delivers.
 
 use crate::error::{GroveError, Result};
+use crate::eval::drift::FeatureMoments;
 use crate::features::stack::FeatureExtractor;
 use crate::features::stack::{Placement, Rect};
 use crate::imageio::RasterImage;
@@ -169,6 +170,7 @@ pub fn predict_band(
     band: &Band,
     image_width: usize,
     image_height: usize,
+    mut moments: Option<&mut FeatureMoments>,
 ) -> Probabilities {
     let k = seg.classes.len();
     let mut out = Probabilities {
@@ -194,7 +196,7 @@ pub fn predict_band(
             image_height,
             window: tile.window,
         };
-        let p = seg.predict_core(window, &at, &tile.core_in_window());
+        let p = seg.predict_core(window, &at, &tile.core_in_window(), moments.as_deref_mut());
         let row = tile.core.width * k;
         for (cy, src) in p.data.chunks_exact(row).enumerate() {
             let from = (cy * band.core.width + tile.core.x) * k;
@@ -207,6 +209,27 @@ pub fn predict_band(
 /// Class probabilities of a whole image computed tile by tile (`tile` = 0: in one piece).
 /// Bit-identical to [`Segmenter::predict_proba`] for every tile size.
 pub fn predict_tiled(seg: &Segmenter, image: &RasterImage, tile: usize) -> Probabilities {
+    predict_tiled_with(seg, image, tile, None)
+}
+
+/// [`predict_tiled`], also gathering the feature moments of the image (for
+/// [`crate::eval::drift`]).
+pub fn predict_tiled_moments(
+    seg: &Segmenter,
+    image: &RasterImage,
+    tile: usize,
+) -> (Probabilities, FeatureMoments) {
+    let mut m = FeatureMoments::new(seg.features.n_features());
+    let p = predict_tiled_with(seg, image, tile, Some(&mut m));
+    (p, m)
+}
+
+fn predict_tiled_with(
+    seg: &Segmenter,
+    image: &RasterImage,
+    tile: usize,
+    mut moments: Option<&mut FeatureMoments>,
+) -> Probabilities {
     let (w, h) = (image.width, image.height);
     let grid = TileGrid::for_image(w, h, tile, &seg.features);
     let k = seg.classes.len();
@@ -219,7 +242,7 @@ pub fn predict_tiled(seg: &Segmenter, image: &RasterImage, tile: usize) -> Proba
             cropped = image.crop(&band.window);
             &cropped
         };
-        data.extend(predict_band(seg, pixels, &band, w, h).data);
+        data.extend(predict_band(seg, pixels, &band, w, h, moments.as_deref_mut()).data);
     }
     Probabilities {
         width: w,

@@ -176,6 +176,7 @@ impl BatchJob<'_> {
             });
             let mut predicted = Ok(());
             let mut warned = false;
+            let mut unlike = 0usize;
             for path in todo {
                 let started = Instant::now();
                 let image = match read_image(&path) {
@@ -192,7 +193,13 @@ impl BatchJob<'_> {
                         break;
                     }
                 }
-                let probs = crate::tiling::predict_tiled(model, &image, self.tile);
+                let (probs, moments) =
+                    crate::tiling::predict_tiled_moments(model, &image, self.tile);
+                if let Some(w) = unlike_training(model, &path, &image, &moments, &mut unlike) {
+                    if tx.send(Work::Warning(w)).is_err() {
+                        break;
+                    }
+                }
                 let work = Work::Image {
                     path,
                     image,
@@ -215,6 +222,37 @@ impl BatchJob<'_> {
         }
         summary.seconds = t0.elapsed().as_secs_f64();
         Ok(summary)
+    }
+}
+
+/// Images unlike the training images get a warning each, up to [`MAX_UNLIKE_WARNINGS`]
+/// (a night's batch of one new camera should not bury the rest of the output).
+const MAX_UNLIKE_WARNINGS: usize = 20;
+
+fn unlike_training(
+    model: &Segmenter,
+    path: &std::path::Path,
+    image: &RasterImage,
+    moments: &crate::eval::drift::FeatureMoments,
+    count: &mut usize,
+) -> Option<String> {
+    let profile = model.profile.as_ref()?;
+    let why = profile.differences(image.width, image.height, moments, &model.features.names());
+    if why.is_empty() {
+        return None;
+    }
+    *count += 1;
+    match *count {
+        n if n < MAX_UNLIKE_WARNINGS => Some(format!(
+            "{} is unlike the training images: {}; its map may be poor",
+            path.display(),
+            why.join("; ")
+        )),
+        MAX_UNLIKE_WARNINGS => Some(format!(
+            "{} is unlike the training images too; no more such warnings in this run",
+            path.display()
+        )),
+        _ => None,
     }
 }
 

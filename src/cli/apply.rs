@@ -43,6 +43,10 @@ pub struct ApplyArgs {
     /// Class colour weight in overlays, 0–1.
     #[arg(long, default_value_t = 0.45, value_name = "W")]
     pub opacity: f32,
+    /// Leave this class untinted in overlays, so the image shows as it is there (e.g. a
+    /// black background); by class name, repeatable.
+    #[arg(long = "no-tint", value_name = "CLASS")]
+    pub no_tint: Vec<String>,
     /// Side of one pixel with its unit (e.g. 0.05m, 2.5um): areas.csv/json then give areas
     /// in the unit squared as well as pixel counts.
     #[arg(long, value_name = "SIZE")]
@@ -140,6 +144,31 @@ fn check_outputs(
     Ok(())
 }
 
+/// Class indices named by `--no-tint`; an unknown name is a usage error that lists the
+/// model's classes.
+fn untinted_classes(
+    names: &[String],
+    classes: &crate::dataset::ClassTable,
+    model: &std::path::Path,
+) -> Result<Vec<u8>> {
+    let mut found: Vec<u8> = Vec::new();
+    for name in names {
+        match classes.classes().iter().position(|c| &c.name == name) {
+            Some(i) => found.push(i as u8),
+            None => {
+                return Err(GroveError::Config(format!(
+                    "--no-tint {name:?}: model {} has no such class (its classes: {})",
+                    model.display(),
+                    classes.names().join(", ")
+                )))
+            }
+        }
+    }
+    found.sort_unstable();
+    found.dedup();
+    Ok(found)
+}
+
 pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
     if !(0.0..=1.0).contains(&args.opacity) {
         return Err(GroveError::Config(format!(
@@ -155,6 +184,7 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
         Some(s) => s.select(all),
         None => all,
     };
+    let untinted = untinted_classes(&args.no_tint, &model.classes, &args.model)?;
     let roi = args.roi.as_deref().map(RoiMasks::open).transpose()?;
     if let Some(r) = &roi {
         let stems: Vec<String> = images.iter().map(|p| stem_of(p)).collect();
@@ -172,6 +202,7 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
             probabilities: args.probabilities,
             uncertainty: args.uncertainty,
             overlay_opacity: args.opacity,
+            untinted,
         },
         shard: args.shard,
         force: args.force,

@@ -10,6 +10,7 @@ use crate::dataset::{read_labels_for, stem_of, UNLABELLED};
 use crate::error::{GroveError, Result};
 use crate::eval::suggest::{draw_regions, rank, suggest_image, SuggestConfig, SuggestReport};
 use crate::imageio::{output_path, read_image, write_atomic, write_rgb_png};
+use crate::outputs::OutputOptions;
 use crate::progress::Progress;
 
 #[derive(Args, Debug)]
@@ -113,7 +114,12 @@ pub fn run(args: SuggestArgs, progress: Progress) -> Result<()> {
             .iter()
             .find(|f| f.0.image == s.image)
             .expect("ranked images come from found");
-        let mut rgb = crate::outputs::overlay(img, &probs.argmax(), &model.classes, 0.45);
+        let mut rgb = crate::outputs::overlay(
+            img,
+            &probs.argmax(),
+            &model.classes,
+            &OutputOptions::default().tint(model.classes.len()),
+        );
         draw_regions(&mut rgb, img.width, img.height, &s.regions);
         write_rgb_png(
             &output_path(&args.out, &s.image, "png"),

@@ -5,6 +5,7 @@ pub mod area_estimate;
 pub mod areas;
 pub mod boundary;
 pub mod confusion;
+pub mod drift;
 pub mod score;
 pub mod suggest;
 pub mod uncertainty;

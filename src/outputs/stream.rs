@@ -82,7 +82,7 @@ impl Writers {
             .collect();
         self.labels.write_rows(&ids)?;
         if let Some(w) = &mut self.overlay {
-            w.write_rows(&overlay(image, index, classes, opts.overlay_opacity))?;
+            w.write_rows(&overlay(image, index, classes, &opts.tint(classes.len())))?;
         }
         if let Some(w) = &mut self.confidence {
             let conf: Vec<u8> = probs.confidence().into_iter().map(to_u8).collect();
@@ -127,7 +127,7 @@ pub fn apply_streaming(
     let mut counts = vec![0u64; k];
     for band in grid.bands() {
         let pixels = reader.rows(band.window.y, band.window.height)?;
-        let probs = predict_band(seg, &pixels, &band, w, h);
+        let probs = predict_band(seg, &pixels, &band, w, h, None);
         let core = pixels.crop(&Rect {
             y: band.core.y - band.window.y,
             ..band.core

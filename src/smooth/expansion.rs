@@ -37,7 +37,7 @@
 use rayon::prelude::*;
 
 use super::energy::PottsEnergy;
-use super::maxflow::{Capacity, GridMaxFlow, Segment, DIRECTIONS};
+use super::maxflow::{Capacity, FlowStart, GridMaxFlow, Segment, DIRECTIONS};
 
 /// Result of [`alpha_expansion`].
 #[derive(Clone, Debug)]
@@ -62,7 +62,13 @@ pub fn alpha_expansion(e: &PottsEnergy) -> Expansion {
 }
 
 /// Alpha-expansion from the labelling `labels`.
-pub fn alpha_expansion_from(e: &PottsEnergy, mut labels: Vec<u8>) -> Expansion {
+pub fn alpha_expansion_from(e: &PottsEnergy, labels: Vec<u8>) -> Expansion {
+    alpha_expansion_with(e, labels, FlowStart::default())
+}
+
+/// Alpha-expansion from `labels` with the max-flow started by `start` (for the benchmark
+/// that compares the starts; the energies agree up to ties between equal cuts).
+pub fn alpha_expansion_with(e: &PottsEnergy, mut labels: Vec<u8>, start: FlowStart) -> Expansion {
     assert_eq!(labels.len(), e.n_pixels(), "labels length");
     let mut energy = e.energy(&labels);
     let mut history = vec![energy];
@@ -91,7 +97,7 @@ pub fn alpha_expansion_from(e: &PottsEnergy, mut labels: Vec<u8>) -> Expansion {
                 continue;
             }
             cuts += 1;
-            mv.graph.max_flow_on(&mv.nodes);
+            mv.graph.max_flow_on_from(&mv.nodes, start);
             let delta = mv.switched_delta(e, &labels, alpha);
             if delta < 0.0 {
                 for &p in &mv.switched {

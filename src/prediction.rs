@@ -4,6 +4,7 @@
 //! so with mean-field smoothing the confidence maps show the smoothed probabilities, and the
 //! CLI, the batch driver and the web workspace all go through [`Segmenter::predictions`].
 
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use crate::imageio::RasterImage;
@@ -138,7 +139,8 @@ impl Segmenter {
             .expect("one setting gives one prediction")
     }
 
-    /// `probs` (of `image`) under each of `settings`; the last one takes `probs` by move.
+    /// `probs` (of `image`) under each of `settings`. Alpha-expansion runs on one thread, so
+    /// several settings are smoothed in parallel; a single one takes `probs` by move.
     pub fn smooth_all(
         &self,
         image: &RasterImage,
@@ -149,19 +151,13 @@ impl Segmenter {
             .iter()
             .any(|s| s.method != SmoothMethod::None)
             .then(|| ImageContrast::new(self, image));
-        let mut out = Vec::with_capacity(settings.len());
-        let mut probs = Some(probs);
-        for (i, s) in settings.iter().enumerate() {
-            let p = if i + 1 == settings.len() {
-                probs.take().expect("taken only at the last setting")
-            } else {
-                probs.clone().expect("taken only at the last setting")
-            };
-            out.push(match &contrast {
-                Some(c) => c.smooth(p, s),
-                None => p.into(),
-            });
+        let one = |p: Probabilities, s: &SmoothSettings| match &contrast {
+            Some(c) => c.smooth(p, s),
+            None => p.into(),
+        };
+        match settings {
+            [s] => vec![one(probs, s)],
+            _ => settings.par_iter().map(|s| one(probs.clone(), s)).collect(),
         }
-        out
     }
 }

@@ -10,6 +10,7 @@ use crate::demo::write_demo_dataset;
 use crate::error::Result;
 use crate::eval::areas::{count_classes, AreaTable};
 use crate::eval::score::{evaluate_smoothed, MetricsReport};
+use crate::eval::smoothing_strength::choose_strength;
 use crate::imageio::{read_image, write_atomic, RasterImage};
 use crate::outputs::{write_outputs, OutputOptions};
 use crate::prediction::{describe, Prediction};
@@ -65,7 +66,18 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
         ..TrainConfig::default()
     };
     let t_train = Instant::now();
-    let model = cfg.fit(&train, &train.labelled(), progress)?;
+    let entries = train.labelled();
+    let choice = choose_strength(&cfg, &train, &entries, SmoothMethod::Expansion, progress)?;
+    let mut model = cfg.fit(&train, &entries, progress)?;
+    if let Some(c) = &choice {
+        model.smoothing = c.default();
+        println!(
+            "smoothing strength {} chosen on {} held-out training scenes (mean IoU/boundary F1 per strength: {})",
+            c.strength,
+            c.held_out.len(),
+            c.scores_line()
+        );
+    }
     let model_path = out.join("model.grove");
     crate::model::save(&model, &model_path)?;
     println!(

@@ -183,13 +183,7 @@ impl SmoothArgs {
         model: &crate::prediction::SmoothDefault,
     ) -> crate::Result<crate::smooth::SmoothSettings> {
         use crate::smooth::{SmoothMethod, SmoothSettings};
-        if let Some(w) = self.smooth_strength {
-            if !(w.is_finite() && w >= 0.0) {
-                return Err(GroveError::Config(format!(
-                    "--smooth-strength {w}: give a finite number ≥ 0 (0 = no smoothing; 1–8 is the usual range)"
-                )));
-            }
-        }
+        check_strength(self.smooth_strength)?;
         let model_smooths = model.method != SmoothMethod::None && model.strength > 0.0;
         let method = self
             .smooth
@@ -205,5 +199,15 @@ impl SmoothArgs {
         let settings = crate::prediction::SmoothDefault { method, strength }.settings();
         settings.validate()?;
         Ok(settings)
+    }
+}
+
+/// Checks a `--smooth-strength` value.
+pub(crate) fn check_strength(strength: Option<f32>) -> crate::Result<()> {
+    match strength {
+        Some(w) if !(w.is_finite() && w >= 0.0) => Err(GroveError::Config(format!(
+            "--smooth-strength {w}: give a finite number ≥ 0 (0 = no smoothing; 1–8 is the usual range)"
+        ))),
+        _ => Ok(()),
     }
 }

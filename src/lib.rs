@@ -21,6 +21,7 @@ pub mod model;
 pub mod output_guard;
 pub mod outputs;
 pub mod plane;
+pub mod prediction;
 pub mod progress;
 pub mod segmenter;
 pub mod serve;

@@ -13,8 +13,9 @@ use crate::imageio::write_atomic;
 use crate::segmenter::Segmenter;
 
 pub const MAGIC: &[u8; 8] = b"GROVE\x00MD";
-/// Bump when the serialised layout of `Segmenter` changes.
-pub const FORMAT_VERSION: u32 = 1;
+/// Bump when the serialised layout of `Segmenter` changes. Version 2 added the smoothing
+/// default (`Segmenter::smoothing`); version 1 files still load, with no smoothing.
+pub const FORMAT_VERSION: u32 = 2;
 const HEADER: usize = 8 + 4 + 8;
 /// Far above any real model (a 32-tree forest on 200k samples is tens of megabytes).
 const MAX_DECODED_BYTES: usize = 1 << 32;
@@ -88,8 +89,14 @@ pub fn from_bytes(bytes: &[u8]) -> std::result::Result<Segmenter, String> {
     // The limit caps what length prefixes inside the payload may claim, so a crafted file
     // cannot make the decoder try to allocate more than a model could ever need.
     let config = bincode::config::standard().with_limit::<MAX_DECODED_BYTES>();
-    let (model, used): (Segmenter, usize) = bincode::serde::decode_from_slice(payload, config)
-        .map_err(|e| format!("model payload cannot be read: {e}"))?;
+    let unreadable = |e: bincode::error::DecodeError| format!("model payload cannot be read: {e}");
+    let (model, used): (Segmenter, usize) = if version == 1 {
+        let (v1, used): (SegmenterV1, usize) =
+            bincode::serde::decode_from_slice(payload, config).map_err(unreadable)?;
+        (v1.into(), used)
+    } else {
+        bincode::serde::decode_from_slice(payload, config).map_err(unreadable)?
+    };
     if used != payload.len() {
         return Err("model payload has trailing bytes; the file is damaged".into());
     }
@@ -97,6 +104,29 @@ pub fn from_bytes(bytes: &[u8]) -> std::result::Result<Segmenter, String> {
         .check()
         .map_err(|e| format!("model is inconsistent ({e}); retrain it with this grove"))?;
     Ok(model)
+}
+
+/// The payload of format version 1: a `Segmenter` without its smoothing default (bincode
+/// is not self-describing, so the old layout needs its own type).
+#[derive(serde::Deserialize)]
+struct SegmenterV1 {
+    classes: crate::dataset::ClassTable,
+    features: crate::features::stack::FeatureExtractor,
+    forest: crate::forest::RandomForest,
+    provenance: crate::segmenter::Provenance,
+}
+
+impl From<SegmenterV1> for Segmenter {
+    /// Version 1 models were made before grove smoothed, so they keep their unsmoothed maps.
+    fn from(v1: SegmenterV1) -> Self {
+        Segmenter {
+            classes: v1.classes,
+            features: v1.features,
+            forest: v1.forest,
+            provenance: v1.provenance,
+            smoothing: crate::prediction::SmoothDefault::NONE,
+        }
+    }
 }
 
 /// Writes a model atomically.

@@ -13,7 +13,7 @@ use std::path::{Path, PathBuf};
 use crate::dataset::ClassTable;
 use crate::error::Result;
 use crate::imageio::{output_path, write_grey_png, write_label_png, write_rgb_png, RasterImage};
-use crate::segmenter::Probabilities;
+use crate::prediction::Prediction;
 
 /// Which optional outputs to write (serialised into batch resume records).
 #[derive(Clone, Copy, Debug, serde::Serialize)]
@@ -118,17 +118,19 @@ pub struct WrittenOutputs {
     pub files: Vec<PathBuf>,
 }
 
-/// Writes the outputs for one image.
+/// Writes the outputs for one image: maps of `prediction.labels`, confidence, uncertainty
+/// and probability maps of `prediction.probabilities` (smoothed ones after mean-field).
 pub fn write_outputs(
     out_dir: &Path,
     stem: &str,
     image: &RasterImage,
-    probs: &Probabilities,
+    prediction: &Prediction,
     classes: &ClassTable,
     opts: &OutputOptions,
 ) -> Result<WrittenOutputs> {
+    let probs = &prediction.probabilities;
     let (w, h) = (probs.width, probs.height);
-    let index = probs.argmax();
+    let index = prediction.labels.clone();
     let ids: Vec<u8> = index
         .iter()
         .map(|&c| classes.classes()[c as usize].id)

@@ -17,6 +17,7 @@ use crate::features::textons::TextonDictionary;
 use crate::forest::{argmax, ForestConfig, RandomForest};
 use crate::imageio::{read_image, RasterImage};
 use crate::plane::Plane;
+use crate::prediction::SmoothDefault;
 use crate::progress::Progress;
 
 /// Most labelled pixels sampled per training image (each is a row of all features).
@@ -79,6 +80,9 @@ pub struct Segmenter {
     pub features: FeatureExtractor,
     pub forest: RandomForest,
     pub provenance: Provenance,
+    /// The smoothing `apply` and `eval` use unless told otherwise (`grove train` chooses the
+    /// strength; models of format version 1 have none).
+    pub smoothing: SmoothDefault,
 }
 
 /// Per-pixel class probabilities, pixel-major (`data[p * n_classes + c]`).
@@ -288,6 +292,7 @@ impl TrainConfig {
             },
             features: extractor,
             forest,
+            smoothing: SmoothDefault::library(),
         })
     }
 }
@@ -398,6 +403,10 @@ impl Segmenter {
         if self.features.n_features() != self.forest.n_features() {
             return Err("forest and feature stack disagree on the number of features".into());
         }
+        self.smoothing
+            .settings()
+            .validate()
+            .map_err(|e| format!("smoothing default: {e}"))?;
         Ok(())
     }
 

@@ -7,6 +7,7 @@ use clap::Args;
 use serde::Serialize;
 
 use crate::batch::{list_inputs, BatchEvent, BatchJob, ImageRecord, Shard};
+use crate::cli::SmoothArgs;
 use crate::dataset::stem_of;
 use crate::error::{GroveError, Result};
 use crate::eval::areas::{AreaTable, PixelSize, RoiMasks};
@@ -67,6 +68,8 @@ pub struct ApplyArgs {
     /// seconds spent in this run, shard); the summary goes to stderr.
     #[arg(long)]
     pub log_json: bool,
+    #[command(flatten)]
+    pub smoothing: SmoothArgs,
 }
 
 /// One `--log-json` line.
@@ -149,6 +152,7 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
     }
     crate::tiling::check_tile(args.tile)?;
     let (model, model_sha256) = crate::model::load_with_sha256(&args.model)?;
+    let smoothing = args.smoothing.settings(&model.smoothing)?;
     let all = list_inputs(&args.inputs)?;
     let n_all = all.len();
     let images = match args.shard {
@@ -177,6 +181,7 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
         force: args.force,
         roi: roi.as_ref(),
         tile: args.tile,
+        smoothing,
     };
     check_outputs(
         &args,
@@ -233,11 +238,12 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
         )
     } else {
         format!(
-            "segmented {} image{} ({:.2} Mpx, {:.2} Mpx/s) in {:.1} s{}; label maps in {}",
+            "segmented {} image{} ({:.2} Mpx, {:.2} Mpx/s, smoothing {}) in {:.1} s{}; label maps in {}",
             summary.done,
             if summary.done == 1 { "" } else { "s" },
             summary.pixels as f64 / 1e6,
             summary.pixels as f64 / 1e6 / summary.seconds.max(1e-9),
+            crate::prediction::describe(&job.smoothing),
             summary.seconds,
             match summary.skipped {
                 0 => String::new(),

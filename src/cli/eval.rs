@@ -4,10 +4,12 @@ use std::path::PathBuf;
 
 use clap::Args;
 
+use crate::cli::SmoothArgs;
 use crate::cli::{open_dataset, LabelArgs};
 use crate::error::{GroveError, Result};
-use crate::eval::score::{evaluate_tiled, MetricsReport};
+use crate::eval::score::{evaluate_smoothed, MetricsReport};
 use crate::progress::Progress;
+use crate::smooth::{SmoothMethod, SmoothSettings};
 
 #[derive(Args, Debug)]
 pub struct EvalArgs {
@@ -25,6 +27,13 @@ pub struct EvalArgs {
     /// once. Scores do not depend on it.
     #[arg(long, value_name = "N", default_value_t = crate::tiling::DEFAULT_TILE)]
     pub tile: usize,
+    /// Also score no smoothing, expansion and mean-field side by side (at the strength in
+    /// use, or the model's, or 3), from one forest prediction per image; in --json under
+    /// "smoothing".
+    #[arg(long)]
+    pub compare_smoothing: bool,
+    #[command(flatten)]
+    pub smoothing: SmoothArgs,
     #[command(flatten)]
     pub labels: LabelArgs,
 }
@@ -32,6 +41,7 @@ pub struct EvalArgs {
 pub fn run(args: EvalArgs, progress: Progress) -> Result<()> {
     crate::tiling::check_tile(args.tile)?;
     let model = crate::model::load(&args.model)?;
+    let smoothing = args.smoothing.settings(&model.smoothing)?;
     let ds = open_dataset(&args.data, &args.labels)?;
     if let Some(json) = &args.json {
         let inputs = ds.files().chain(std::iter::once(args.model.as_path()));
@@ -74,12 +84,66 @@ pub fn run(args: EvalArgs, progress: Progress) -> Result<()> {
     if overlap > 0 {
         eprintln!("warning: {overlap} of these images share a name with training images; scores on training images are optimistic");
     }
-    let scores = evaluate_tiled(&model, &ds, &entries, args.tile, progress, |_, _, _| Ok(()))?;
-    let report = MetricsReport::new(&scores, &model.classes);
+    let compared = if args.compare_smoothing {
+        comparison_settings(&smoothing, &model.smoothing)
+    } else {
+        Vec::new()
+    };
+    // The settings in use first, then those of the comparison that differ from it.
+    let mut settings = vec![smoothing.clone()];
+    settings.extend(compared.iter().filter(|s| **s != smoothing).cloned());
+    let scores = evaluate_smoothed(
+        &model,
+        &ds,
+        &entries,
+        args.tile,
+        &settings,
+        progress,
+        |_, _, _| Ok(()),
+    )?;
+    let report_of = |s: &SmoothSettings| {
+        let i = settings.iter().position(|x| x == s).expect("scored");
+        MetricsReport::new(&scores[i], &model.classes).smoothed_with(s)
+    };
+    let mut report = report_of(&smoothing);
+    report.smoothing = compared
+        .iter()
+        .map(|s| (s.method.name().to_string(), report_of(s)))
+        .collect();
     print!("{}", report.to_table());
+    if args.compare_smoothing {
+        print!("\n{}", report.comparison_table());
+    }
     if let Some(path) = &args.json {
         crate::imageio::write_atomic(path, report.to_json().as_bytes())?;
         println!("\nscores written to {}", path.display());
     }
     Ok(())
+}
+
+/// none, expansion and mean-field at one strength: the one in use, else the model's, else
+/// the library default.
+fn comparison_settings(
+    in_use: &SmoothSettings,
+    model: &crate::prediction::SmoothDefault,
+) -> Vec<SmoothSettings> {
+    let strength = if in_use.method != SmoothMethod::None {
+        in_use.strength
+    } else if model.method != SmoothMethod::None && model.strength > 0.0 {
+        model.strength
+    } else {
+        SmoothSettings::default().strength
+    };
+    [
+        SmoothMethod::None,
+        SmoothMethod::Expansion,
+        SmoothMethod::MeanField,
+    ]
+    .into_iter()
+    .map(|method| SmoothSettings {
+        method,
+        strength,
+        ..SmoothSettings::default()
+    })
+    .collect()
 }

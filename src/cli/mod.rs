@@ -158,3 +158,56 @@ fn open_dataset(
     }
     Ok(ds)
 }
+
+/// Smoothing options shared by `apply` and `eval` (and `train`, where they fix the model's
+/// default instead of searching for it).
+#[derive(clap::Args, Debug, Clone, Default)]
+pub struct SmoothArgs {
+    /// Pairwise smoothing of the label map (contrast-sensitive Potts CRF): expansion (graph
+    /// cuts, labels only), meanfield (also smooths the probabilities, so confidence and
+    /// uncertainty maps show the smoothed ones) or none. Default: the model's (`grove info`).
+    #[arg(long, value_name = "METHOD")]
+    pub smooth: Option<crate::smooth::SmoothMethod>,
+    /// Smoothing strength W ≥ 0 (0 = none): the cost, in units of −ln p, of two neighbouring
+    /// pixels of equal colour taking different classes. Default: the model's, or 3.
+    #[arg(long, value_name = "W", allow_negative_numbers = true)]
+    pub smooth_strength: Option<f32>,
+}
+
+impl SmoothArgs {
+    /// The settings to use: these options over the model's default `model`. A strength without
+    /// a method takes the model's method (expansion if the model smooths not at all); a
+    /// method without a strength takes the model's strength (3 if it has none).
+    pub fn settings(
+        &self,
+        model: &crate::prediction::SmoothDefault,
+    ) -> crate::Result<crate::smooth::SmoothSettings> {
+        use crate::smooth::{SmoothMethod, SmoothSettings};
+        check_strength(self.smooth_strength)?;
+        let model_smooths = model.method != SmoothMethod::None && model.strength > 0.0;
+        let method = self
+            .smooth
+            .unwrap_or(match (self.smooth_strength, model_smooths) {
+                (Some(_), false) => SmoothMethod::Expansion,
+                _ => model.method,
+            });
+        let strength = self.smooth_strength.unwrap_or(if model_smooths {
+            model.strength
+        } else {
+            SmoothSettings::default().strength
+        });
+        let settings = crate::prediction::SmoothDefault { method, strength }.settings();
+        settings.validate()?;
+        Ok(settings)
+    }
+}
+
+/// Checks a `--smooth-strength` value.
+pub(crate) fn check_strength(strength: Option<f32>) -> crate::Result<()> {
+    match strength {
+        Some(w) if !(w.is_finite() && w >= 0.0) => Err(GroveError::Config(format!(
+            "--smooth-strength {w}: give a finite number ≥ 0 (0 = no smoothing; 1–8 is the usual range)"
+        ))),
+        _ => Ok(()),
+    }
+}

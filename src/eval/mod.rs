@@ -6,6 +6,7 @@ pub mod areas;
 pub mod boundary;
 pub mod confusion;
 pub mod score;
+pub mod smoothing_strength;
 pub mod suggest;
 pub mod uncertainty;
 

@@ -7,9 +7,11 @@ use crate::error::{GroveError, Result};
 use crate::eval::boundary::{BoundaryCounts, DEFAULT_TOLERANCE};
 use crate::eval::confusion::ConfusionMatrix;
 use crate::imageio::RasterImage;
+use crate::prediction::Prediction;
 use crate::progress::Progress;
 use crate::segmenter::{Probabilities, Segmenter};
-use crate::tiling::{predict_tiled, DEFAULT_TILE};
+use crate::smooth::{SmoothMethod, SmoothSettings};
+use crate::tiling::DEFAULT_TILE;
 
 /// Pixel and boundary counts of one labelling of some images, pooled and per image.
 #[derive(Clone, Debug)]
@@ -125,6 +127,27 @@ pub struct MetricsReport {
     /// boundary F1 only sees where strokes of two classes touch).
     pub labelled_fraction: f64,
     pub per_image: Vec<ImageReport>,
+    /// The smoothing the maps were made with ("none", "expansion", "meanfield").
+    pub smooth_method: String,
+    /// Its strength (0 for none).
+    pub smooth_strength: f32,
+    /// `eval --compare-smoothing`: method name → the same report for that method, in the
+    /// order none, expansion, meanfield.
+    #[serde(skip_serializing_if = "Vec::is_empty", serialize_with = "ordered_map")]
+    pub smoothing: Vec<(String, MetricsReport)>,
+}
+
+/// A list of pairs as a JSON object that keeps their order.
+fn ordered_map<S: serde::Serializer>(
+    pairs: &[(String, MetricsReport)],
+    ser: S,
+) -> std::result::Result<S::Ok, S::Error> {
+    use serde::ser::SerializeMap;
+    let mut map = ser.serialize_map(Some(pairs.len()))?;
+    for (k, v) in pairs {
+        map.serialize_entry(k, v)?;
+    }
+    map.end()
 }
 
 impl MetricsReport {
@@ -176,7 +199,44 @@ impl MetricsReport {
                     labelled_pixels: i.confusion.total(),
                 })
                 .collect(),
+            smooth_method: SmoothMethod::None.name().into(),
+            smooth_strength: 0.0,
+            smoothing: Vec::new(),
         }
+    }
+
+    /// Records that the maps were smoothed with `settings`.
+    pub fn smoothed_with(mut self, settings: &SmoothSettings) -> Self {
+        self.smooth_method = settings.method.name().into();
+        self.smooth_strength = match settings.method {
+            SmoothMethod::None => 0.0,
+            _ => settings.strength,
+        };
+        self
+    }
+
+    /// Side-by-side scores of several smoothings (`eval --compare-smoothing`).
+    pub fn comparison_table(&self) -> String {
+        let mut s = "the same forest prediction, smoothed three ways:\n".to_string();
+        s += &format!(
+            "{:<26}  {:>8}  {:>8}  {:>11}  {:>14}\n",
+            "smoothing", "accuracy", "mean IoU", "boundary F1", "class accuracy"
+        );
+        for (_, r) in &self.smoothing {
+            let method = match r.smooth_method.as_str() {
+                "none" => "none".to_string(),
+                m => format!("{m}, strength {}", r.smooth_strength),
+            };
+            s += &format!(
+                "{:<26}  {:>8.4}  {:>8.4}  {:>11}  {:>14.4}\n",
+                method,
+                r.pixel_accuracy,
+                r.mean_iou,
+                r.boundary_f1.map_or("-".to_string(), |b| format!("{b:.4}")),
+                r.mean_class_accuracy
+            );
+        }
+        s
     }
 
     pub fn to_json(&self) -> String {
@@ -196,8 +256,12 @@ impl MetricsReport {
             v.as_f64()
                 .map_or("   -  ".to_string(), |x| format!("{x:6.4}"))
         };
+        let smoothing = match self.smooth_method.as_str() {
+            "none" => "no smoothing".to_string(),
+            m => format!("smoothing {m}, strength {}", self.smooth_strength),
+        };
         let mut s = format!(
-            "{} images, {} labelled pixels\npixel accuracy {:.4}   mean IoU {:.4}   mean class accuracy {:.4}   boundary F1 {} (within {} px)\n",
+            "{} images, {} labelled pixels, {smoothing}\npixel accuracy {:.4}   mean IoU {:.4}   mean class accuracy {:.4}   boundary F1 {} (within {} px)\n",
             self.images.len(),
             self.labelled_pixels,
             self.pixel_accuracy,
@@ -334,7 +398,8 @@ where
 }
 
 /// As [`evaluate_with`], predicting in tiles of `tile` pixels (0 = whole images); the scores
-/// do not depend on it (tiled prediction is bit-identical), only memory and speed do.
+/// do not depend on it (tiled prediction is bit-identical), only memory and speed do. No
+/// smoothing: [`evaluate_smoothed`] scores smoothed maps.
 pub fn evaluate_tiled<F>(
     model: &Segmenter,
     dataset: &Dataset,
@@ -346,23 +411,50 @@ pub fn evaluate_tiled<F>(
 where
     F: FnMut(&ImageEntry, &RasterImage, &Probabilities) -> Result<()>,
 {
-    let mut scores = Scores::new(model.classes.len());
+    let none = SmoothSettings {
+        method: SmoothMethod::None,
+        ..SmoothSettings::default()
+    };
+    let scores = evaluate_smoothed(
+        model,
+        dataset,
+        entries,
+        tile,
+        &[none],
+        progress,
+        |e, img, p| visit(e, img, &p[0].probabilities),
+    )?;
+    Ok(scores.into_iter().next().expect("one setting, one score"))
+}
+
+/// Scores the maps of every labelled image in `entries` under each of `settings`
+/// (validated), from one forest prediction per image ([`Segmenter::predictions`]), and
+/// hands the predictions, in `settings` order, to `visit`. One [`Scores`] per setting.
+pub fn evaluate_smoothed<F>(
+    model: &Segmenter,
+    dataset: &Dataset,
+    entries: &[&ImageEntry],
+    tile: usize,
+    settings: &[SmoothSettings],
+    progress: Progress,
+    mut visit: F,
+) -> Result<Vec<Scores>>
+where
+    F: FnMut(&ImageEntry, &RasterImage, &[Prediction]) -> Result<()>,
+{
+    let mut scores = vec![Scores::new(model.classes.len()); settings.len()];
     let bar = progress.stage("scoring", entries.len() as u64);
     for e in entries {
         let (img, labels) = dataset.load_pair(e)?;
-        let probs = predict_tiled(model, &img, tile);
-        scores.add(
-            &e.stem,
-            img.width,
-            img.height,
-            &labels.indices,
-            &probs.argmax(),
-        )?;
-        visit(e, &img, &probs)?;
+        let predictions = model.predictions(&img, tile, settings);
+        for (s, p) in scores.iter_mut().zip(&predictions) {
+            s.add(&e.stem, img.width, img.height, &labels.indices, &p.labels)?;
+        }
+        visit(e, &img, &predictions)?;
         bar.inc(1);
     }
     bar.finish_and_clear();
-    if scores.confusion.total() == 0 {
+    if scores.first().is_some_and(|s| s.confusion.total() == 0) {
         return Err(GroveError::Data(format!(
             "{}: the scored images have no labelled pixels",
             dataset.root.display()

@@ -1,8 +1,8 @@
 //! Work that takes longer than a request: training (`TrainConfig::fit` on a background
 //! thread, its stages followed through `Progress::observed`, so the page keeps working and
 //! polls for progress), and the layers computed from the current model for one image
-//! (prediction and uncertainty from `predict_proba`, the smoothed prediction from
-//! `smooth::smooth`), cached per model generation.
+//! (prediction, uncertainty and the prediction smoothed with the model's default, from
+//! `Segmenter::predictions`), cached per model generation.
 
 use std::collections::HashMap;
 use std::path::Path;
@@ -20,9 +20,11 @@ use crate::dataset::{Dataset, UNLABELLED};
 use crate::error::Result;
 use crate::eval::areas::{count_classes, AreaTable};
 use crate::imageio::{encode_png, read_image};
+use crate::prediction::Prediction;
 use crate::progress::Progress;
 use crate::segmenter::{Segmenter, TrainConfig};
-use crate::smooth::{smooth, SmoothSettings};
+use crate::smooth::{SmoothMethod, SmoothSettings};
+use crate::tiling::DEFAULT_TILE;
 
 /// The stage bar of the training that is running (one per process: `Progress` observers
 /// are plain functions).
@@ -48,7 +50,7 @@ struct ImageLayers {
     prediction: Vec<u8>,
     /// 0 = sure, 1 = as unsure as the class count allows.
     uncertainty: Vec<f32>,
-    /// Class index per pixel after pairwise smoothing (`smooth::smooth`, default settings).
+    /// Class index per pixel after pairwise smoothing (the model's default settings).
     smoothed: Vec<u8>,
 }
 
@@ -232,7 +234,18 @@ fn layers_of(
             "the model was trained on grey images; this one is in colour: retrain",
         ));
     }
-    let probs = model.predict_proba(&image);
+    // Unsmoothed and with the model's default smoothing, from one forest pass (the same
+    // library call as `grove apply` and `grove eval`).
+    let none = SmoothSettings {
+        method: SmoothMethod::None,
+        ..SmoothSettings::default()
+    };
+    let settings = [none, model.smoothing.settings()];
+    let [plain, smoothed]: [Prediction; 2] = model
+        .predictions(&image, DEFAULT_TILE, &settings)
+        .try_into()
+        .expect("two settings, two predictions");
+    let probs = plain.probabilities;
     let k = probs.n_classes as f32;
     let floor = 1.0 / k;
     let uncertainty = probs
@@ -240,14 +253,12 @@ fn layers_of(
         .into_iter()
         .map(|c| ((1.0 - c) / (1.0 - floor)).clamp(0.0, 1.0))
         .collect();
-    let settings = SmoothSettings::default();
-    let smoothed = smooth(&probs, &model.features.lab(&image), &settings, None).labels;
     let layers = Arc::new(ImageLayers {
         width: probs.width,
         height: probs.height,
-        prediction: probs.argmax(),
+        prediction: plain.labels,
         uncertainty,
-        smoothed,
+        smoothed: smoothed.labels,
     });
     let mut cache = ws.jobs.layers.lock().expect("layer lock poisoned");
     cache.retain(|(n, _, _)| n != name);

@@ -22,6 +22,7 @@ pub mod output_guard;
 pub mod outputs;
 pub mod plane;
 pub mod progress;
+pub mod report;
 pub mod segmenter;
 pub mod serve;
 pub mod smooth;

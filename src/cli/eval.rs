@@ -8,6 +8,7 @@ use crate::cli::{open_dataset, LabelArgs};
 use crate::error::{GroveError, Result};
 use crate::eval::score::{evaluate_tiled, MetricsReport};
 use crate::progress::Progress;
+use crate::report::{Report, Thumbnails};
 
 #[derive(Args, Debug)]
 pub struct EvalArgs {
@@ -18,7 +19,11 @@ pub struct EvalArgs {
     /// Also write the scores as JSON.
     #[arg(long, value_name = "FILE")]
     pub json: Option<PathBuf>,
-    /// Replace an existing file at --json even if grove did not write it.
+    /// Also write a self-contained HTML report (scores, confusion heat map, per-image
+    /// pictures); it needs no network and no other file.
+    #[arg(long, value_name = "FILE.html")]
+    pub report: Option<PathBuf>,
+    /// Replace an existing file at --json or --report even if grove did not write it.
     #[arg(long)]
     pub force: bool,
     /// Predict in tiles of N × N pixels (plus a halo), bounding memory; 0 = whole images at
@@ -33,9 +38,10 @@ pub fn run(args: EvalArgs, progress: Progress) -> Result<()> {
     crate::tiling::check_tile(args.tile)?;
     let model = crate::model::load(&args.model)?;
     let ds = open_dataset(&args.data, &args.labels)?;
-    if let Some(json) = &args.json {
-        let inputs = ds.files().chain(std::iter::once(args.model.as_path()));
-        crate::output_guard::OutputGuard::new(inputs, args.force).check_file(json)?;
+    let inputs = ds.files().chain(std::iter::once(args.model.as_path()));
+    let guard = crate::output_guard::OutputGuard::new(inputs, args.force);
+    for out in args.json.iter().chain(&args.report) {
+        guard.check_file(out)?;
     }
     if ds.classes != model.classes {
         return Err(GroveError::input(
@@ -74,12 +80,32 @@ pub fn run(args: EvalArgs, progress: Progress) -> Result<()> {
     if overlap > 0 {
         eprintln!("warning: {overlap} of these images share a name with training images; scores on training images are optimistic");
     }
-    let scores = evaluate_tiled(&model, &ds, &entries, args.tile, progress, |_, _, _| Ok(()))?;
+    let mut pictures = Thumbnails::default();
+    let scores = evaluate_tiled(
+        &model,
+        &ds,
+        &entries,
+        args.tile,
+        progress,
+        |e, img, p| match args.report {
+            Some(_) => pictures.add(&ds, e, img, p),
+            None => Ok(()),
+        },
+    )?;
     let report = MetricsReport::new(&scores, &model.classes);
     print!("{}", report.to_table());
     if let Some(path) = &args.json {
         crate::imageio::write_atomic(path, report.to_json().as_bytes())?;
         println!("\nscores written to {}", path.display());
+    }
+    if let Some(path) = &args.report {
+        let mut page = Report::for_eval(&model, report, pictures);
+        page.facts
+            .push(("model file".into(), args.model.display().to_string()));
+        page.facts
+            .push(("scored on".into(), ds.root.display().to_string()));
+        page.write(path)?;
+        println!("report written to {}", path.display());
     }
     Ok(())
 }

@@ -25,6 +25,14 @@ pub struct TrainArgs {
     /// Replace an existing file at --model even if grove did not write it.
     #[arg(long)]
     pub force: bool,
+    #[command(flatten)]
+    pub options: TrainOptions,
+}
+
+/// How to train: shared by `train` and `crossval`, so a cross-validated setting is exactly
+/// the one `train` would use.
+#[derive(Args, Debug)]
+pub struct TrainOptions {
     /// Trees in the forest (1–4096).
     #[arg(long, default_value_t = 32, value_name = "N")]
     pub trees: usize,
@@ -68,7 +76,7 @@ pub struct TrainArgs {
     pub labels: LabelArgs,
 }
 
-impl TrainArgs {
+impl TrainOptions {
     pub fn config(&self) -> TrainConfig {
         let mut cfg = TrainConfig {
             samples_per_image: self.samples_per_image,
@@ -89,9 +97,9 @@ impl TrainArgs {
 
 pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
     let t0 = Instant::now();
-    let config = args.config();
+    let config = args.options.config();
     config.validate()?;
-    let ds = open_dataset(&args.data, &args.labels)?;
+    let ds = open_dataset(&args.data, &args.options.labels)?;
     // Before any work: an hour of training must not end in "cannot write".
     crate::output_guard::OutputGuard::new(ds.files(), args.force).check_file(&args.model)?;
     let entries = ds.labelled();

@@ -257,7 +257,7 @@ fn per_class(r: &Report) -> String {
     t += "</tbody></table>";
     format!(
         r#"<section id="classes"><h2>Per class</h2><div class="row"><div>{t}</div><div><h2>IoU per class</h2>{}</div></div><p class="muted">Areas are shares of the labelled pixels only (in the truth, and in the prediction at those pixels){}.</p></section>"#,
-        bars("iou-bars", &iou_bars, 1.0, 3, "#3b528b"),
+        bars("iou-bars", &iou_bars, 1.0, 220.0, 3, "#3b528b"),
         if m.labelled_fraction < crate::eval::score::SPARSE_LABELS {
             ": with scribble labels they describe the strokes, not the scene"
         } else {
@@ -357,7 +357,7 @@ fn features(r: &Report) -> String {
             },
             top.len(),
             r.importances.len(),
-            bars("importance-bars", &top, max, 3, "#21918c")
+            bars("importance-bars", &top, max, 320.0, 3, "#21918c")
         );
     }
     s += r#"<div id="oob" style="max-width:420px"><h2>Out-of-bag estimate</h2>"#;

@@ -15,9 +15,10 @@ pub struct Bar {
     pub swatch: Option<[u8; 3]>,
 }
 
-/// Horizontal bars scaled to `max` (values above it are clipped), each labelled with its
-/// value printed with `decimals` digits. `id` names the chart for styling and tests.
-pub fn bars(id: &str, bars: &[Bar], max: f64, decimals: usize, colour: &str) -> String {
+/// Horizontal bars of up to `bar_w` px for `max` (values above it are clipped), each
+/// labelled with its value printed with `decimals` digits. `id` names the chart for styling
+/// and tests.
+pub fn bars(id: &str, bars: &[Bar], max: f64, bar_w: f64, decimals: usize, colour: &str) -> String {
     let label_w = bars
         .iter()
         .map(|b| b.label.chars().count())
@@ -29,7 +30,7 @@ pub fn bars(id: &str, bars: &[Bar], max: f64, decimals: usize, colour: &str) -> 
         } else {
             10.0
         };
-    let (row, bar_w, value_w) = (22.0, 320.0, 60.0);
+    let (row, value_w) = (22.0, 60.0);
     let width = label_w + bar_w + value_w + 8.0;
     let height = row * bars.len() as f64 + 4.0;
     let mut s = format!(
@@ -212,6 +213,7 @@ mod tests {
                 swatch: Some([1, 2, 3]),
             }],
             1.0,
+            100.0,
             3,
             "#000",
         );

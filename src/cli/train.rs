@@ -129,7 +129,7 @@ pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
     }
     if let Some(oob) = p.oob_accuracy {
         println!("out-of-bag accuracy on sampled pixels: {oob:.4}");
-        println!("  this is optimistic: the trees are checked on pixels of the same images they learnt from, which look alike; a score on held-out images is the one to trust (grove eval on labelled images not used for training)");
+        println!("  this is optimistic: the trees are checked on pixels of the same images they learnt from, which look alike; a score on held-out images is the one to trust (grove crossval on this dataset, or grove eval on labelled images not used for training)");
     }
     println!("model written to {}", args.model.display());
     println!(

@@ -23,6 +23,7 @@ pub mod outputs;
 pub mod plane;
 pub mod prediction;
 pub mod progress;
+pub mod report;
 pub mod segmenter;
 pub mod serve;
 pub mod smooth;

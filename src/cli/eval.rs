@@ -9,6 +9,7 @@ use crate::cli::{open_dataset, LabelArgs};
 use crate::error::{GroveError, Result};
 use crate::eval::score::{evaluate_smoothed, MetricsReport};
 use crate::progress::Progress;
+use crate::report::{Report, Thumbnails};
 use crate::smooth::{SmoothMethod, SmoothSettings};
 
 #[derive(Args, Debug)]
@@ -20,7 +21,11 @@ pub struct EvalArgs {
     /// Also write the scores as JSON.
     #[arg(long, value_name = "FILE")]
     pub json: Option<PathBuf>,
-    /// Replace an existing file at --json even if grove did not write it.
+    /// Also write a self-contained HTML report (scores, confusion heat map, per-image
+    /// pictures); it needs no network and no other file.
+    #[arg(long, value_name = "FILE.html")]
+    pub report: Option<PathBuf>,
+    /// Replace an existing file at --json or --report even if grove did not write it.
     #[arg(long)]
     pub force: bool,
     /// Predict in tiles of N × N pixels (plus a halo), bounding memory; 0 = whole images at
@@ -43,9 +48,10 @@ pub fn run(args: EvalArgs, progress: Progress) -> Result<()> {
     let model = crate::model::load(&args.model)?;
     let smoothing = args.smoothing.settings(&model.smoothing)?;
     let ds = open_dataset(&args.data, &args.labels)?;
-    if let Some(json) = &args.json {
-        let inputs = ds.files().chain(std::iter::once(args.model.as_path()));
-        crate::output_guard::OutputGuard::new(inputs, args.force).check_file(json)?;
+    let inputs = ds.files().chain(std::iter::once(args.model.as_path()));
+    let guard = crate::output_guard::OutputGuard::new(inputs, args.force);
+    for out in args.json.iter().chain(&args.report) {
+        guard.check_file(out)?;
     }
     if ds.classes != model.classes {
         return Err(GroveError::input(
@@ -92,6 +98,7 @@ pub fn run(args: EvalArgs, progress: Progress) -> Result<()> {
     // The settings in use first, then those of the comparison that differ from it.
     let mut settings = vec![smoothing.clone()];
     settings.extend(compared.iter().filter(|s| **s != smoothing).cloned());
+    let mut pictures = Thumbnails::default();
     let scores = evaluate_smoothed(
         &model,
         &ds,
@@ -99,7 +106,11 @@ pub fn run(args: EvalArgs, progress: Progress) -> Result<()> {
         args.tile,
         &settings,
         progress,
-        |_, _, _| Ok(()),
+        // Thumbnails show the maps of the settings in use (the first).
+        |e, img, p| match args.report {
+            Some(_) => pictures.add(&ds, e, img, &p[0]),
+            None => Ok(()),
+        },
     )?;
     let report_of = |s: &SmoothSettings| {
         let i = settings.iter().position(|x| x == s).expect("scored");
@@ -117,6 +128,15 @@ pub fn run(args: EvalArgs, progress: Progress) -> Result<()> {
     if let Some(path) = &args.json {
         crate::imageio::write_atomic(path, report.to_json().as_bytes())?;
         println!("\nscores written to {}", path.display());
+    }
+    if let Some(path) = &args.report {
+        let mut page = Report::for_eval(&model, report, pictures);
+        page.facts
+            .push(("model file".into(), args.model.display().to_string()));
+        page.facts
+            .push(("scored on".into(), ds.root.display().to_string()));
+        page.write(path)?;
+        println!("report written to {}", path.display());
     }
     Ok(())
 }

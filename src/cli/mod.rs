@@ -2,13 +2,14 @@
 
 mod apply;
 mod areas;
+mod crossval;
 mod demo;
 mod eval;
 mod info;
 mod label;
 mod merge_areas;
 mod suggest;
-mod train;
+pub(crate) mod train;
 
 use clap::{Parser, Subcommand};
 
@@ -48,6 +49,12 @@ enum Command {
     /// Score a model on a labelled dataset: accuracy, IoU per class, confusion matrix.
     #[command(after_help = "Example:\n  grove eval fields.grove held-out/ --json scores.json")]
     Eval(eval::EvalArgs),
+    /// Cross-validate the training options by image: K folds, each scored by a model that
+    /// never saw its images.
+    #[command(
+        after_help = "Example:\n  grove crossval fields/ --folds 5 --trees 48 --json cv.json --report cv.html\n\nTakes the same training options as `grove train`; writes no model."
+    )]
+    Crossval(crossval::CrossvalArgs),
     /// Generate the synthetic farm dataset, train, score and apply, end to end.
     Demo(demo::DemoArgs),
     /// Merge the area tables (areas.csv/json) of several apply output folders, e.g. shards.
@@ -106,6 +113,7 @@ pub fn run() -> i32 {
         Command::Train(a) => train::run(a, progress),
         Command::Apply(a) => apply::run(a, progress),
         Command::Eval(a) => eval::run(a, progress),
+        Command::Crossval(a) => crossval::run(a, progress),
         Command::Demo(a) => demo::run(a, progress),
         Command::Info(a) => info::run(a),
         Command::MergeAreas(a) => merge_areas::run(a),

@@ -28,6 +28,14 @@ pub struct TrainArgs {
     /// Replace an existing file at --model even if grove did not write it.
     #[arg(long)]
     pub force: bool,
+    #[command(flatten)]
+    pub options: TrainOptions,
+}
+
+/// How to train: shared by `train` and `crossval`, so a cross-validated setting is exactly
+/// the one `train` would use.
+#[derive(Args, Debug)]
+pub struct TrainOptions {
     /// Trees in the forest (1–4096).
     #[arg(long, default_value_t = 32, value_name = "N")]
     pub trees: usize,
@@ -68,7 +76,8 @@ pub struct TrainArgs {
     #[arg(long, default_value_t = 0)]
     pub seed: u64,
     /// The model's default smoothing method (expansion, meanfield, none). Without
-    /// --smooth-strength the strength is chosen on held-out training images.
+    /// --smooth-strength the strength is chosen on held-out training images. In `crossval`:
+    /// the smoothing applied to the maps it scores (none unless given).
     #[arg(long, value_name = "METHOD")]
     pub smooth: Option<SmoothMethod>,
     /// The model's default smoothing strength (≥ 0; 0 = none), instead of choosing it from
@@ -79,7 +88,7 @@ pub struct TrainArgs {
     pub labels: LabelArgs,
 }
 
-impl TrainArgs {
+impl TrainOptions {
     pub fn config(&self) -> TrainConfig {
         let mut cfg = TrainConfig {
             samples_per_image: self.samples_per_image,
@@ -100,15 +109,15 @@ impl TrainArgs {
 
 pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
     let t0 = Instant::now();
-    let config = args.config();
+    let config = args.options.config();
     config.validate()?;
-    check_strength(args.smooth_strength)?;
-    let ds = open_dataset(&args.data, &args.labels)?;
+    check_strength(args.options.smooth_strength)?;
+    let ds = open_dataset(&args.data, &args.options.labels)?;
     // Before any work: an hour of training must not end in "cannot write".
     crate::output_guard::OutputGuard::new(ds.files(), args.force).check_file(&args.model)?;
     let entries = ds.labelled();
-    let method = args.smooth.unwrap_or(SmoothMethod::Expansion);
-    let (smoothing, choice) = match (args.smooth, args.smooth_strength) {
+    let method = args.options.smooth.unwrap_or(SmoothMethod::Expansion);
+    let (smoothing, choice) = match (args.options.smooth, args.options.smooth_strength) {
         (Some(SmoothMethod::None), _) => (SmoothDefault::NONE, None),
         (_, Some(strength)) => (SmoothDefault { method, strength }, None),
         _ => match choose_strength(&config, &ds, &entries, method, progress)? {
@@ -129,7 +138,7 @@ pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
     );
     let explained = match &choice {
         Some(c) => explain_choice(c, seconds),
-        None if args.smooth_strength.is_some() || args.smooth == Some(SmoothMethod::None) => {
+        None if args.options.smooth_strength.is_some() || args.options.smooth == Some(SmoothMethod::None) => {
             "as given)".to_string()
         }
         None => "the built-in default: with one training image there is none to hold out for choosing the strength)".to_string(),
@@ -154,7 +163,7 @@ pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
     }
     if let Some(oob) = p.oob_accuracy {
         println!("out-of-bag accuracy on sampled pixels: {oob:.4}");
-        println!("  this is optimistic: the trees are checked on pixels of the same images they learnt from, which look alike; a score on held-out images is the one to trust (grove eval on labelled images not used for training)");
+        println!("  this is optimistic: the trees are checked on pixels of the same images they learnt from, which look alike; a score on held-out images is the one to trust (grove crossval on this dataset, or grove eval on labelled images not used for training)");
     }
     println!("model written to {}", args.model.display());
     println!(

@@ -84,6 +84,16 @@ impl Scores {
         self.boundary.mean_f1()
     }
 
+    /// Adds another labelling's counts (e.g. the held-out images of another cross-validation
+    /// fold), keeping its images' own scores.
+    pub fn merge(&mut self, other: &Scores) -> Result<()> {
+        self.confusion.merge(&other.confusion)?;
+        self.boundary.merge(&other.boundary)?;
+        self.per_image.extend(other.per_image.iter().cloned());
+        self.pixels += other.pixels;
+        Ok(())
+    }
+
     /// True when fewer than half the pixels are labelled (scribbles).
     pub fn sparse_labels(&self) -> bool {
         (self.confusion.total() as f64) < SPARSE_LABELS * self.pixels as f64
@@ -98,7 +108,34 @@ pub struct ImageReport {
     pub mean_iou: Option<f64>,
     pub boundary_f1: Option<f64>,
     pub labelled_pixels: u64,
+    /// Class name → predicted and true share of this image's labelled pixels.
+    pub area_fraction: serde_json::Map<String, serde_json::Value>,
 }
+
+/// A class's share of the labelled pixels in the prediction and in the truth. Only labelled
+/// pixels count: with scribbles these are shares of the strokes, not of the scene.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+pub struct AreaFraction {
+    pub predicted: f64,
+    #[serde(rename = "true")]
+    pub truth: f64,
+}
+
+/// Per class, its [`AreaFraction`] over the labelled pixels of `cm` (all 0 when none are).
+pub fn area_fractions(cm: &ConfusionMatrix) -> Vec<AreaFraction> {
+    let total = cm.total().max(1) as f64;
+    (0..cm.n_classes())
+        .map(|c| AreaFraction {
+            predicted: cm.predicted_count(c) as f64 / total,
+            truth: cm.truth_count(c) as f64 / total,
+        })
+        .collect()
+}
+
+/// What the area fractions are shares of (written beside them, because with scribble
+/// labels they are not shares of the scene).
+pub const AREA_FRACTION_BASIS: &str =
+    "labelled pixels only: the share of each class among the pixels that have a true label, in the truth and in the prediction there";
 
 /// The scores as written by `--json` and by the demo's `metrics.json`.
 #[derive(Clone, Debug, Serialize)]
@@ -126,6 +163,10 @@ pub struct MetricsReport {
     /// Share of the scored images' pixels that are labelled (below 0.5: scribbles, and
     /// boundary F1 only sees where strokes of two classes touch).
     pub labelled_fraction: f64,
+    /// Class name → {"predicted", "true"}: share of the labelled pixels ([`AreaFraction`]).
+    pub area_fraction: serde_json::Map<String, serde_json::Value>,
+    /// What `area_fraction` is a share of ([`AREA_FRACTION_BASIS`]).
+    pub area_fraction_basis: String,
     pub per_image: Vec<ImageReport>,
     /// The smoothing the maps were made with ("none", "expansion", "meanfield").
     pub smooth_method: String,
@@ -167,6 +208,13 @@ impl MetricsReport {
                 .collect()
         };
         let k = classes.len();
+        let areas = |cm: &ConfusionMatrix| {
+            names
+                .iter()
+                .zip(area_fractions(cm))
+                .map(|(n, a)| (n.clone(), serde_json::json!(a)))
+                .collect()
+        };
         MetricsReport {
             generator: format!(
                 "{} {}",
@@ -188,6 +236,8 @@ impl MetricsReport {
             per_class_boundary_f1: by_name(scores.boundary.per_class_f1()),
             boundary_tolerance_px: scores.boundary.tolerance(),
             labelled_fraction: cm.total() as f64 / scores.pixels.max(1) as f64,
+            area_fraction: areas(cm),
+            area_fraction_basis: AREA_FRACTION_BASIS.into(),
             per_image: scores
                 .per_image
                 .iter()
@@ -197,6 +247,7 @@ impl MetricsReport {
                     mean_iou: i.confusion.mean_iou(),
                     boundary_f1: i.boundary.mean_f1(),
                     labelled_pixels: i.confusion.total(),
+                    area_fraction: areas(&i.confusion),
                 })
                 .collect(),
             smooth_method: SmoothMethod::None.name().into(),
@@ -274,18 +325,27 @@ impl MetricsReport {
             s += &format!("note: {note}\n");
         }
         s += &format!(
-            "\n{:<width$}  {:>6}  {:>8}  {:>11}\n",
-            "class", "IoU", "accuracy", "boundary F1"
+            "\n{:<width$}  {:>6}  {:>8}  {:>11}  {:>9}  {:>9}\n",
+            "class", "IoU", "accuracy", "boundary F1", "true area", "predicted"
         );
         for name in &self.classes {
+            let area = |key: &str| {
+                self.area_fraction[name][key]
+                    .as_f64()
+                    .map_or("-".into(), |a| format!("{:.1} %", 100.0 * a))
+            };
             s += &format!(
-                "{:<width$}  {}  {:>8}  {:>11}\n",
+                "{:<width$}  {}  {:>8}  {:>11}  {:>9}  {:>9}\n",
                 name,
                 fmt(&self.per_class_iou[name]),
                 fmt(&self.per_class_accuracy[name]),
-                fmt(&self.per_class_boundary_f1[name])
+                fmt(&self.per_class_boundary_f1[name]),
+                area("true"),
+                area("predicted")
             );
         }
+        s +=
+            "(area: share of the labelled pixels only, in the truth and in the prediction there)\n";
         if self.per_image.len() > 1 {
             let iw = self
                 .per_image
@@ -499,6 +559,13 @@ mod tests {
         assert_eq!(r.per_image[1].boundary_f1, None);
         assert_eq!(r.boundary_f1, Some(1.0));
         assert_eq!(r.labelled_fraction, 6.0 / 8.0);
+        // Areas over labelled pixels only, counted by hand: truth a = 2 + 1 of 6, predicted
+        // a = 1 + 1 of 6; the dense image alone: truth a 2 of 4, predicted 1 of 4.
+        assert_eq!(r.area_fraction["a"]["true"], 0.5);
+        assert_eq!(r.area_fraction["a"]["predicted"], 2.0 / 6.0);
+        assert_eq!(r.per_image[0].area_fraction["a"]["predicted"], 0.25);
+        assert_eq!(r.per_image[0].area_fraction["b"]["true"], 0.5);
+        assert!(r.to_table().contains("33.3 %"));
         let json: serde_json::Value = serde_json::from_str(&r.to_json()).unwrap();
         for key in [
             "boundary_f1",

@@ -145,11 +145,7 @@ impl MetricsReport {
         };
         let k = classes.len();
         MetricsReport {
-            generator: format!(
-                "{} {}",
-                crate::output_guard::SIGNATURE,
-                env!("CARGO_PKG_VERSION")
-            ),
+            generator: crate::output_guard::generator(),
             pixel_accuracy: cm.pixel_accuracy().unwrap_or(0.0),
             mean_iou: cm.mean_iou().unwrap_or(0.0),
             mean_class_accuracy: cm.mean_class_accuracy().unwrap_or(0.0),

@@ -19,6 +19,12 @@ pub const FORMAT_VERSION: u32 = 2;
 const HEADER: usize = 8 + 4 + 8;
 /// Far above any real model (a 32-tree forest on 200k samples is tens of megabytes).
 const MAX_DECODED_BYTES: usize = 1 << 32;
+/// What a payload below [`SMALL_PAYLOAD`] bytes may claim to decode to: a real model's
+/// memory is a few times its encoded size (varints), so 64 MiB is ample for a payload under
+/// 1 MiB, and a crafted tiny file (checksum and all) cannot make the loader allocate
+/// gigabytes before it fails.
+const SMALL_DECODED_BYTES: usize = 64 << 20;
+const SMALL_PAYLOAD: usize = 1 << 20;
 
 /// FNV-1a, 64-bit (Fowler–Noll–Vo): a fast hash that is plenty to detect damage.
 fn fnv1a(bytes: &[u8]) -> u64 {
@@ -34,12 +40,18 @@ fn fnv1a(bytes: &[u8]) -> u64 {
 pub fn to_bytes(model: &Segmenter) -> Vec<u8> {
     let payload = bincode::serde::encode_to_vec(model, bincode::config::standard())
         .expect("a segmenter always serialises");
+    frame(&payload)
+}
+
+/// The file around a payload: magic, version, length, payload, hash. Public so the model
+/// fuzz target can reach the decoder past the hash with arbitrary payloads.
+pub fn frame(payload: &[u8]) -> Vec<u8> {
     let mut out = Vec::with_capacity(HEADER + payload.len() + 8);
     out.extend_from_slice(MAGIC);
     out.extend_from_slice(&FORMAT_VERSION.to_le_bytes());
     out.extend_from_slice(&(payload.len() as u64).to_le_bytes());
-    out.extend_from_slice(&payload);
-    out.extend_from_slice(&fnv1a(&payload).to_le_bytes());
+    out.extend_from_slice(payload);
+    out.extend_from_slice(&fnv1a(payload).to_le_bytes());
     out
 }
 
@@ -88,14 +100,22 @@ pub fn from_bytes(bytes: &[u8]) -> std::result::Result<Segmenter, String> {
     }
     // The limit caps what length prefixes inside the payload may claim, so a crafted file
     // cannot make the decoder try to allocate more than a model could ever need.
-    let config = bincode::config::standard().with_limit::<MAX_DECODED_BYTES>();
     let unreadable = |e: bincode::error::DecodeError| format!("model payload cannot be read: {e}");
+    fn decode<T: serde::de::DeserializeOwned>(
+        payload: &[u8],
+    ) -> std::result::Result<(T, usize), bincode::error::DecodeError> {
+        let standard = bincode::config::standard();
+        if payload.len() < SMALL_PAYLOAD {
+            bincode::serde::decode_from_slice(payload, standard.with_limit::<SMALL_DECODED_BYTES>())
+        } else {
+            bincode::serde::decode_from_slice(payload, standard.with_limit::<MAX_DECODED_BYTES>())
+        }
+    }
     let (model, used): (Segmenter, usize) = if version == 1 {
-        let (v1, used): (SegmenterV1, usize) =
-            bincode::serde::decode_from_slice(payload, config).map_err(unreadable)?;
+        let (v1, used): (SegmenterV1, usize) = decode(payload).map_err(unreadable)?;
         (v1.into(), used)
     } else {
-        bincode::serde::decode_from_slice(payload, config).map_err(unreadable)?
+        decode(payload).map_err(unreadable)?
     };
     if used != payload.len() {
         return Err("model payload has trailing bytes; the file is damaged".into());

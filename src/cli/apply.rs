@@ -120,7 +120,9 @@ fn check_outputs(
         .chain(std::iter::once(args.model.as_path()));
     let guard = crate::output_guard::OutputGuard::new(inputs, args.force);
     guard.check_dir(&args.out)?;
-    guard.check_file(&args.out.join("classes.toml"))?;
+    for own in ["classes.toml", "areas.csv", "areas.json"] {
+        guard.check_file(&args.out.join(own))?;
+    }
     let mut seen = std::collections::HashMap::new();
     for image in images {
         let stem = stem_of(image);

@@ -33,6 +33,9 @@ pub struct DemoArgs {
     /// Seed of the scene generator and of training.
     #[arg(long, default_value_t = 7)]
     pub seed: u64,
+    /// Replace existing files in the output places that grove did not write.
+    #[arg(long)]
+    pub force: bool,
 }
 
 pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
@@ -43,6 +46,8 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
     }
     let t0 = Instant::now();
     let out = &args.out;
+    crate::output_guard::OutputGuard::new(std::iter::empty(), args.force)
+        .check_grove_folder(out)?;
     let n_test = (args.images / 3).max(1);
     let n_train = args.images - n_test;
     let (train_dir, test_dir) = (out.join("train"), out.join("test"));

@@ -130,9 +130,16 @@ pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
     crate::model::save(&model, &args.model)?;
     let p = &model.provenance;
     let seconds = t0.elapsed().as_secs_f64();
+    let unlabelled = ds.entries.len() - entries.len();
     println!(
-        "trained on {} images ({} sampled pixels, {} features) in {seconds:.1} s",
+        "trained on {} image{}{} ({} sampled pixels, {} features) in {seconds:.1} s",
         entries.len(),
+        if entries.len() == 1 { "" } else { "s" },
+        if unlabelled > 0 {
+            format!(" ({unlabelled} more without a label file)")
+        } else {
+            String::new()
+        },
         p.samples_per_class.iter().sum::<u64>(),
         model.features.n_features(),
     );

@@ -15,8 +15,8 @@ use crate::dataset::{Dataset, ImageEntry};
 use crate::error::{GroveError, Result};
 use crate::eval::score::{evaluate_smoothed, Scores};
 use crate::imageio::RasterImage;
-use crate::progress::Progress;
 use crate::prediction::Prediction;
+use crate::progress::Progress;
 use crate::segmenter::{Segmenter, TrainConfig};
 use crate::smooth::SmoothSettings;
 
@@ -127,9 +127,15 @@ where
         let test: Vec<&ImageEntry> = test.into_iter().map(|(_, e)| *e).collect();
         let model = config.fit(dataset, &train, progress)?;
         let settings = std::slice::from_ref(smoothing);
-        let scores = evaluate_smoothed(&model, dataset, &test, tile, settings, progress, |e, img, p| {
-            visit(&model, e, img, &p[0])
-        })?
+        let scores = evaluate_smoothed(
+            &model,
+            dataset,
+            &test,
+            tile,
+            settings,
+            progress,
+            |e, img, p| visit(&model, e, img, &p[0]),
+        )?
         .remove(0);
         pooled.merge(&scores)?;
         results.push(FoldResult {

@@ -216,11 +216,7 @@ impl MetricsReport {
                 .collect()
         };
         MetricsReport {
-            generator: format!(
-                "{} {}",
-                crate::output_guard::SIGNATURE,
-                env!("CARGO_PKG_VERSION")
-            ),
+            generator: crate::output_guard::generator(),
             pixel_accuracy: cm.pixel_accuracy().unwrap_or(0.0),
             mean_iou: cm.mean_iou().unwrap_or(0.0),
             mean_class_accuracy: cm.mean_class_accuracy().unwrap_or(0.0),

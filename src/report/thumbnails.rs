@@ -11,9 +11,9 @@ use std::ops::Range;
 use crate::dataset::{ClassTable, UNLABELLED};
 use crate::eval::uncertainty::unsureness;
 use crate::imageio::RasterImage;
+use crate::prediction::Prediction;
 use crate::report::colormap::viridis;
 use crate::report::data_uri::png_data_uri;
-use crate::prediction::Prediction;
 
 /// Longest side of a thumbnail in pixels: five of them fit a report row on a laptop screen.
 pub const THUMB_SIDE: usize = 176;

@@ -101,6 +101,7 @@ impl CrossValidation {
 /// Cross-validates `config` on the labelled images `entries` of `dataset` with `k` folds
 /// (seeded by `config.seed`), predicting in tiles of `tile`. `visit` sees every held-out
 /// prediction (with the fold's model), e.g. to draw report thumbnails.
+#[allow(clippy::too_many_arguments)] // each is a distinct choice of the caller
 pub fn cross_validate<F>(
     config: &TrainConfig,
     dataset: &Dataset,

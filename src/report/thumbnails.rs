@@ -134,7 +134,7 @@ impl ThumbnailRow {
             );
             put(
                 &mut p_rgb,
-                mode(&pred, idx, &mut counts).map_or(dim[t], |c| colour[c as usize]),
+                mode(pred, idx, &mut counts).map_or(dim[t], |c| colour[c as usize]),
             );
             put(
                 &mut e_rgb,

@@ -116,16 +116,22 @@ pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
     // Before any work: an hour of training must not end in "cannot write".
     crate::output_guard::OutputGuard::new(ds.files(), args.force).check_file(&args.model)?;
     let entries = ds.labelled();
+    // The real model first: its checks of the dataset give the clearest messages, and the
+    // strength search below trains on a subset that may fail for reasons of its own.
+    let mut model = config.fit(&ds, &entries, progress)?;
     let method = args.options.smooth.unwrap_or(SmoothMethod::Expansion);
     let (smoothing, choice) = match (args.options.smooth, args.options.smooth_strength) {
         (Some(SmoothMethod::None), _) => (SmoothDefault::NONE, None),
         (_, Some(strength)) => (SmoothDefault { method, strength }, None),
-        _ => match choose_strength(&config, &ds, &entries, method, progress)? {
-            Some(c) => (c.default(), Some(c)),
-            None => (SmoothDefault::library(), None),
+        _ => match choose_strength(&config, &ds, &entries, method, progress) {
+            Ok(Some(c)) => (c.default(), Some(c)),
+            Ok(None) => (SmoothDefault::library(), None),
+            Err(e) => {
+                eprintln!("warning: could not choose a smoothing strength on held-out training images ({e}); using the default");
+                (SmoothDefault::library(), None)
+            }
         },
     };
-    let mut model = config.fit(&ds, &entries, progress)?;
     model.smoothing = smoothing;
     crate::model::save(&model, &args.model)?;
     let p = &model.provenance;

@@ -74,7 +74,11 @@ fn blur(img: &RasterImage) -> RasterImage {
 
 /// The drift score (`eval::drift::drift_score`) of an image.
 fn score(model: &Segmenter, img: &RasterImage) -> f64 {
-    let img = if model.features.channels == 3 { img.to_rgb() } else { img.clone() };
+    let img = if model.features.channels == 3 {
+        img.to_rgb()
+    } else {
+        img.clone()
+    };
     let (_, m) = predict_tiled_moments(model, &img, 0);
     drift_score(&model.profile.as_ref().expect("new model").z_scores(&m))
 }
@@ -110,7 +114,10 @@ fn main() {
         ("10 % darker", Box::new(|i| map(i, |v| v * 0.9))),
         ("30 % darker", Box::new(|i| map(i, |v| v * 0.7))),
         ("30 % brighter", Box::new(|i| map(i, |v| v * 1.3))),
-        ("lower contrast", Box::new(|i| map(i, |v| 0.5 + (v - 0.5) * 0.6))),
+        (
+            "lower contrast",
+            Box::new(|i| map(i, |v| 0.5 + (v - 0.5) * 0.6)),
+        ),
         ("blurred", Box::new(blur)),
         ("2x coarser pixels", Box::new(halve)),
     ];

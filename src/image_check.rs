@@ -61,8 +61,13 @@ fn megapixels(pixels: u64) -> String {
     }
 }
 
+/// "4500.0 GB", or "12.3 MB" below a gigabyte (so a small image never reads "0.0 GB").
 fn gib(bytes: u64) -> String {
-    format!("{:.1} GB", bytes as f64 / 1e9)
+    if bytes < 1_000_000_000 {
+        format!("{:.1} MB", bytes as f64 / 1e6)
+    } else {
+        format!("{:.1} GB", bytes as f64 / 1e9)
+    }
 }
 
 /// Refuses an image of `width` × `height` above [`max_pixels`], before anything is allocated.
@@ -82,8 +87,8 @@ pub fn size_problem(width: u64, height: u64) -> Option<String> {
     let limit = max_pixels();
     if pixels > limit {
         return Some(format!(
-                "image is {width}x{height} ({:.1} megapixels), above the limit of {} megapixels; segmenting it would need about {} of memory ({} available). Crop or downscale it, or raise the limit with --max-megapixels (large images are not yet processed in tiles)",
-                pixels as f64 / 1e6,
+                "image is {width}x{height} ({} megapixels), above the limit of {} megapixels; segmenting it would need about {} of memory ({} available). Crop or downscale it, or raise the limit with --max-megapixels (large images are not yet processed in tiles)",
+                megapixels(pixels),
                 megapixels(limit),
                 gib(pixels.saturating_mul(BYTES_PER_PIXEL)),
                 available_memory().map_or("unknown".to_string(), gib),

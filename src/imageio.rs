@@ -396,15 +396,8 @@ pub fn encode_png(
             enc.set_palette(p);
         }
         // Marks the file as grove's own, so a re-run may replace it (see `output_guard`).
-        enc.add_text_chunk(
-            "Software".into(),
-            format!(
-                "{} {}",
-                crate::output_guard::SIGNATURE,
-                env!("CARGO_PKG_VERSION")
-            ),
-        )
-        .expect("a Latin-1 keyword and text");
+        enc.add_text_chunk("Software".into(), crate::output_guard::generator())
+            .expect("a Latin-1 keyword and text");
         // Writing into a Vec cannot fail for valid dimensions, which callers guarantee.
         let mut writer = enc.write_header().expect("png header");
         writer.write_image_data(data).expect("png data");

@@ -13,12 +13,19 @@ use crate::imageio::write_atomic;
 use crate::segmenter::Segmenter;
 
 pub const MAGIC: &[u8; 8] = b"GROVE\x00MD";
-/// Bump when the serialised layout of `Segmenter` changes (and keep reading the old one).
-/// 2: the training profile (`eval::drift`).
+/// Bump when the serialised layout of `Segmenter` changes. Version 2 added the smoothing
+/// default (`Segmenter::smoothing`) and the training profile (`Segmenter::profile`, for
+/// `eval::drift`); version 1 files still load, with no smoothing and no profile.
 pub const FORMAT_VERSION: u32 = 2;
 const HEADER: usize = 8 + 4 + 8;
 /// Far above any real model (a 32-tree forest on 200k samples is tens of megabytes).
 const MAX_DECODED_BYTES: usize = 1 << 32;
+/// What a payload below [`SMALL_PAYLOAD`] bytes may claim to decode to: a real model's
+/// memory is a few times its encoded size (varints), so 64 MiB is ample for a payload under
+/// 1 MiB, and a crafted tiny file (checksum and all) cannot make the loader allocate
+/// gigabytes before it fails.
+const SMALL_DECODED_BYTES: usize = 64 << 20;
+const SMALL_PAYLOAD: usize = 1 << 20;
 
 /// FNV-1a, 64-bit (Fowler–Noll–Vo): a fast hash that is plenty to detect damage.
 fn fnv1a(bytes: &[u8]) -> u64 {
@@ -34,12 +41,18 @@ fn fnv1a(bytes: &[u8]) -> u64 {
 pub fn to_bytes(model: &Segmenter) -> Vec<u8> {
     let payload = bincode::serde::encode_to_vec(model, bincode::config::standard())
         .expect("a segmenter always serialises");
+    frame(&payload)
+}
+
+/// The file around a payload: magic, version, length, payload, hash. Public so the model
+/// fuzz target can reach the decoder past the hash with arbitrary payloads.
+pub fn frame(payload: &[u8]) -> Vec<u8> {
     let mut out = Vec::with_capacity(HEADER + payload.len() + 8);
     out.extend_from_slice(MAGIC);
     out.extend_from_slice(&FORMAT_VERSION.to_le_bytes());
     out.extend_from_slice(&(payload.len() as u64).to_le_bytes());
-    out.extend_from_slice(&payload);
-    out.extend_from_slice(&fnv1a(&payload).to_le_bytes());
+    out.extend_from_slice(payload);
+    out.extend_from_slice(&fnv1a(payload).to_le_bytes());
     out
 }
 
@@ -88,15 +101,23 @@ pub fn from_bytes(bytes: &[u8]) -> std::result::Result<Segmenter, String> {
     }
     // The limit caps what length prefixes inside the payload may claim, so a crafted file
     // cannot make the decoder try to allocate more than a model could ever need.
-    let config = bincode::config::standard().with_limit::<MAX_DECODED_BYTES>();
-    let decoded = if version == 1 {
-        bincode::serde::decode_from_slice::<SegmenterV1, _>(payload, config)
-            .map(|(m, used)| (m.into(), used))
+    let unreadable = |e: bincode::error::DecodeError| format!("model payload cannot be read: {e}");
+    fn decode<T: serde::de::DeserializeOwned>(
+        payload: &[u8],
+    ) -> std::result::Result<(T, usize), bincode::error::DecodeError> {
+        let standard = bincode::config::standard();
+        if payload.len() < SMALL_PAYLOAD {
+            bincode::serde::decode_from_slice(payload, standard.with_limit::<SMALL_DECODED_BYTES>())
+        } else {
+            bincode::serde::decode_from_slice(payload, standard.with_limit::<MAX_DECODED_BYTES>())
+        }
+    }
+    let (model, used): (Segmenter, usize) = if version == 1 {
+        let (v1, used): (SegmenterV1, usize) = decode(payload).map_err(unreadable)?;
+        (v1.into(), used)
     } else {
-        bincode::serde::decode_from_slice::<Segmenter, _>(payload, config)
+        decode(payload).map_err(unreadable)?
     };
-    let (model, used): (Segmenter, usize) =
-        decoded.map_err(|e| format!("model payload cannot be read: {e}"))?;
     if used != payload.len() {
         return Err("model payload has trailing bytes; the file is damaged".into());
     }
@@ -106,7 +127,8 @@ pub fn from_bytes(bytes: &[u8]) -> std::result::Result<Segmenter, String> {
     Ok(model)
 }
 
-/// The layout of format 1 (grove before the training profile), read into today's.
+/// The payload of format version 1: a `Segmenter` without its smoothing default (bincode
+/// is not self-describing, so the old layout needs its own type).
 #[derive(serde::Deserialize)]
 struct SegmenterV1 {
     classes: crate::dataset::ClassTable,
@@ -116,12 +138,14 @@ struct SegmenterV1 {
 }
 
 impl From<SegmenterV1> for Segmenter {
-    fn from(m: SegmenterV1) -> Self {
+    /// Version 1 models were made before grove smoothed, so they keep their unsmoothed maps.
+    fn from(v1: SegmenterV1) -> Self {
         Segmenter {
-            classes: m.classes,
-            features: m.features,
-            forest: m.forest,
-            provenance: m.provenance,
+            classes: v1.classes,
+            features: v1.features,
+            forest: v1.forest,
+            provenance: v1.provenance,
+            smoothing: crate::prediction::SmoothDefault::NONE,
             profile: None,
         }
     }

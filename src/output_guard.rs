@@ -23,14 +23,20 @@ use crate::error::{GroveError, Result};
 /// Marks a file as grove's own output; placed within its first 4 KiB.
 pub const SIGNATURE: &str = "written by grove";
 
+/// "written by grove VERSION": the value of the `generator` key of grove's JSON files and of
+/// the `Software` text of its PNGs.
+pub fn generator() -> String {
+    format!("{SIGNATURE} {}", env!("CARGO_PKG_VERSION"))
+}
+
 /// How far into a file [`is_grove_file`] looks for the signature.
 const SNIFF_BYTES: usize = 4096;
 
 /// The longest output name component kept (most file systems allow 255 bytes).
 const MAX_NAME_BYTES: usize = 200;
 
-/// True when `path` is a file grove wrote: a model file, or a file with [`SIGNATURE`] in its
-/// first 4 KiB.
+/// True when `path` is a file grove wrote: a model file, an area table (by its header, see
+/// [`crate::eval::areas::CSV_HEADER`]), or a file with [`SIGNATURE`] in its first 4 KiB.
 pub fn is_grove_file(path: &Path) -> bool {
     let Ok(file) = std::fs::File::open(path) else {
         return false;
@@ -43,7 +49,9 @@ pub fn is_grove_file(path: &Path) -> bool {
     {
         return false;
     }
+    let area_csv = crate::eval::areas::CSV_HEADER.as_bytes();
     head.starts_with(crate::model::MAGIC)
+        || (head.starts_with(area_csv) && matches!(head.get(area_csv.len()), Some(b'\n' | b',')))
         || head
             .windows(SIGNATURE.len())
             .any(|w| w == SIGNATURE.as_bytes())
@@ -105,6 +113,12 @@ impl OutputGuard {
                 "is a folder; give a file name for this output (are the arguments in the right order?)",
             ));
         }
+        if path.exists() && !path.is_file() {
+            return Err(GroveError::output(
+                path,
+                "is not a regular file (a device or pipe?); give a file name for this output",
+            ));
+        }
         let target = self.resolve(path)?;
         if self.inputs.binary_search(&target).is_ok() {
             return Err(GroveError::output(
@@ -146,6 +160,26 @@ impl OutputGuard {
             ));
         }
         Ok(())
+    }
+
+    /// Checks that `dir` may be used as a folder grove fills with files of its own choosing
+    /// (`grove demo`): [`Self::check_dir`], and every file already in it, at any depth, is
+    /// grove's (without `--force`). Stops at the first foreign file, which it names.
+    pub fn check_grove_folder(&self, dir: &Path) -> Result<()> {
+        self.check_dir(dir)?;
+        if self.force || !dir.is_dir() {
+            return Ok(());
+        }
+        match first_foreign_file(dir) {
+            Some(f) => Err(GroveError::output(
+                dir,
+                format!(
+                    "holds {}, which grove did not write; give a new or empty folder (grove only replaces its own files there)",
+                    f.display()
+                ),
+            )),
+            None => Ok(()),
+        }
     }
 
     /// The canonical form of a path that may not exist yet, after checking that it can be
@@ -198,6 +232,25 @@ impl OutputGuard {
             }
         }
     }
+}
+
+/// The first file under `dir` (depth first) that grove did not write; grove's temporaries
+/// and unreadable entries are skipped.
+fn first_foreign_file(dir: &Path) -> Option<PathBuf> {
+    let mut entries: Vec<_> = std::fs::read_dir(dir).ok()?.flatten().collect();
+    entries.sort_by_key(|e| e.file_name());
+    for e in entries {
+        let path = e.path();
+        let Ok(kind) = e.file_type() else { continue };
+        if kind.is_dir() {
+            if let Some(f) = first_foreign_file(&path) {
+                return Some(f);
+            }
+        } else if !crate::atomic_write::is_temp_name(&e.file_name()) && !is_grove_file(&path) {
+            return Some(path);
+        }
+    }
+    None
 }
 
 #[cfg(unix)]

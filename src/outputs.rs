@@ -13,7 +13,7 @@ use std::path::{Path, PathBuf};
 use crate::dataset::ClassTable;
 use crate::error::Result;
 use crate::imageio::{output_path, write_grey_png, write_label_png, write_rgb_png, RasterImage};
-use crate::segmenter::Probabilities;
+use crate::prediction::Prediction;
 
 /// Which optional outputs to write (serialised into batch resume records).
 #[derive(Clone, Debug, serde::Serialize)]
@@ -65,7 +65,12 @@ pub(crate) fn to_u8(v: f32) -> u8 {
 
 /// Blends class colours over the image; `tint` is the colour weight of each class index
 /// (0 = that class shows the image as it is).
-pub fn overlay(image: &RasterImage, class_index: &[u8], classes: &ClassTable, tint: &[f32]) -> Vec<u8> {
+pub fn overlay(
+    image: &RasterImage,
+    class_index: &[u8],
+    classes: &ClassTable,
+    tint: &[f32],
+) -> Vec<u8> {
     let mut rgb = image.to_rgb8();
     let colours: Vec<[u8; 3]> = classes.classes().iter().map(|c| c.color).collect();
     for (px, &c) in rgb.chunks_exact_mut(3).zip(class_index) {
@@ -137,17 +142,19 @@ pub struct WrittenOutputs {
     pub files: Vec<PathBuf>,
 }
 
-/// Writes the outputs for one image.
+/// Writes the outputs for one image: maps of `prediction.labels`, confidence, uncertainty
+/// and probability maps of `prediction.probabilities` (smoothed ones after mean-field).
 pub fn write_outputs(
     out_dir: &Path,
     stem: &str,
     image: &RasterImage,
-    probs: &Probabilities,
+    prediction: &Prediction,
     classes: &ClassTable,
     opts: &OutputOptions,
 ) -> Result<WrittenOutputs> {
+    let probs = &prediction.probabilities;
     let (w, h) = (probs.width, probs.height);
-    let index = probs.argmax();
+    let index = prediction.labels.clone();
     let ids: Vec<u8> = index
         .iter()
         .map(|&c| classes.classes()[c as usize].id)

@@ -18,6 +18,7 @@ use crate::features::textons::TextonDictionary;
 use crate::forest::{argmax, ForestConfig, RandomForest};
 use crate::imageio::{read_image, RasterImage};
 use crate::plane::Plane;
+use crate::prediction::SmoothDefault;
 use crate::progress::Progress;
 
 /// Most labelled pixels sampled per training image (each is a row of all features).
@@ -80,8 +81,11 @@ pub struct Segmenter {
     pub features: FeatureExtractor,
     pub forest: RandomForest,
     pub provenance: Provenance,
+    /// The smoothing `apply` and `eval` use unless told otherwise (`grove train` chooses the
+    /// strength; models of format version 1 have none).
+    pub smoothing: SmoothDefault,
     /// What the training images looked like, for `apply`'s warnings about images unlike
-    /// them (None in models from before format 2).
+    /// them (None in models of format version 1).
     pub profile: Option<TrainingProfile>,
 }
 
@@ -297,6 +301,7 @@ impl TrainConfig {
             },
             features: extractor,
             forest,
+            smoothing: SmoothDefault::library(),
             profile: Some(TrainingProfile::from_images(sizes, &moments)),
         })
     }
@@ -445,6 +450,10 @@ impl Segmenter {
         if self.features.n_features() != self.forest.n_features() {
             return Err("forest and feature stack disagree on the number of features".into());
         }
+        self.smoothing
+            .settings()
+            .validate()
+            .map_err(|e| format!("smoothing default: {e}"))?;
         Ok(())
     }
 

@@ -891,3 +891,20 @@ fn table_options_out_of_range_are_usage_errors() {
     );
     assert!(!m.exists());
 }
+
+#[test]
+fn framed_payloads_claiming_huge_containers_are_refused() {
+    // A crafted file with a valid hash whose payload claims a container of 2^40 elements
+    // (bincode varint: 253, then a u64) at one of its first fields: an error, at once,
+    // without trying to allocate it (see `model::SMALL_DECODED_BYTES`).
+    for zeros in 0..32 {
+        let mut payload = vec![0u8; zeros];
+        payload.push(253);
+        payload.extend((1u64 << 40).to_le_bytes());
+        let err = grove::model::from_bytes(&grove::model::frame(&payload)).unwrap_err();
+        assert!(
+            err.contains("cannot be read") || err.contains("inconsistent"),
+            "{err}"
+        );
+    }
+}

@@ -189,7 +189,8 @@ fn streamed_outputs_equal_whole_image_outputs() {
         let img = grove::imageio::read_image(&path).unwrap();
         let whole_dir = t.path().join(format!("whole-{ext}"));
         let probs = model.predict_proba(&img);
-        write_outputs(&whole_dir, "big", &img, &probs, &model.classes, &opts).unwrap();
+        let pred = probs.into();
+        write_outputs(&whole_dir, "big", &img, &pred, &model.classes, &opts).unwrap();
         let stream_dir = t.path().join(format!("stream-{ext}"));
         let done = apply_streaming(&model, &path, &stream_dir, "big", 64, &opts, |_, _| {
             Ok(None)

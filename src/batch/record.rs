@@ -87,11 +87,7 @@ impl Records {
         shard: Option<String>,
     ) -> ImageRecord {
         ImageRecord {
-            generator: format!(
-                "{} {}",
-                crate::output_guard::SIGNATURE,
-                env!("CARGO_PKG_VERSION")
-            ),
+            generator: crate::output_guard::generator(),
             image: image.display().to_string(),
             outputs: outputs
                 .iter()

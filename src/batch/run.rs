@@ -17,7 +17,9 @@ use crate::error::Result;
 use crate::eval::areas::{count_classes, AreaTable, RoiMasks};
 use crate::imageio::{read_image, RasterImage};
 use crate::outputs::{write_outputs, OutputOptions};
-use crate::segmenter::{Probabilities, Segmenter};
+use crate::prediction::Prediction;
+use crate::segmenter::Segmenter;
+use crate::smooth::SmoothSettings;
 
 /// One run of `apply` over a list of images (already restricted to this shard).
 pub struct BatchJob<'a> {
@@ -35,6 +37,8 @@ pub struct BatchJob<'a> {
     pub roi: Option<&'a RoiMasks>,
     /// Tile side for prediction (`tiling::predict_tiled`; 0 = whole image).
     pub tile: usize,
+    /// Pairwise smoothing of every map (validated).
+    pub smoothing: SmoothSettings,
 }
 
 /// What the driver reports while it runs (for progress bars and `--log-json`).
@@ -63,7 +67,7 @@ enum Work {
     Image {
         path: PathBuf,
         image: RasterImage,
-        probs: Probabilities,
+        prediction: Prediction,
         started: Instant,
     },
 }
@@ -71,11 +75,12 @@ enum Work {
 impl BatchJob<'_> {
     /// The resume records of this job's output folder, model and settings.
     pub fn records(&self) -> Records {
-        // What makes the outputs and counts differ: the maps asked for and the ROI folder
-        // (masks edited in place are not noticed: --force).
+        // What makes the outputs and counts differ: the maps asked for, the ROI folder
+        // (masks edited in place are not noticed: --force) and the smoothing.
         let options = serde_json::json!({
             "outputs": self.options,
             "roi": self.roi.map(|r| r.dir().display().to_string()),
+            "smoothing": self.smoothing,
         });
         Records::new(&self.out_dir, &self.model_sha256, options)
     }
@@ -129,7 +134,7 @@ impl BatchJob<'_> {
             let counts = &mut counts;
             let writer = scope.spawn(move || -> Result<()> {
                 for work in rx {
-                    let (path, image, probs, started) = match work {
+                    let (path, image, prediction, started) = match work {
                         Work::Warning(w) => {
                             on_event(BatchEvent::Warning(w));
                             continue;
@@ -137,16 +142,16 @@ impl BatchJob<'_> {
                         Work::Image {
                             path,
                             image,
-                            probs,
+                            prediction,
                             started,
-                        } => (path, image, probs, started),
+                        } => (path, image, prediction, started),
                     };
                     let stem = stem_of(&path);
                     let written = write_outputs(
                         &self.out_dir,
                         &stem,
                         &image,
-                        &probs,
+                        &prediction,
                         &model.classes,
                         &self.options,
                     )?;
@@ -200,10 +205,13 @@ impl BatchJob<'_> {
                         break;
                     }
                 }
+                let prediction = model
+                    .smooth_all(&image, probs, std::slice::from_ref(&self.smoothing))
+                    .remove(0);
                 let work = Work::Image {
                     path,
                     image,
-                    probs,
+                    prediction,
                     started,
                 };
                 if tx.send(work).is_err() {

@@ -7,6 +7,7 @@ use clap::Args;
 use serde::Serialize;
 
 use crate::batch::{list_inputs, BatchEvent, BatchJob, ImageRecord, Shard};
+use crate::cli::SmoothArgs;
 use crate::dataset::stem_of;
 use crate::error::{GroveError, Result};
 use crate::eval::areas::{AreaTable, PixelSize, RoiMasks};
@@ -71,6 +72,8 @@ pub struct ApplyArgs {
     /// seconds spent in this run, shard); the summary goes to stderr.
     #[arg(long)]
     pub log_json: bool,
+    #[command(flatten)]
+    pub smoothing: SmoothArgs,
 }
 
 /// One `--log-json` line.
@@ -121,7 +124,9 @@ fn check_outputs(
         .chain(std::iter::once(args.model.as_path()));
     let guard = crate::output_guard::OutputGuard::new(inputs, args.force);
     guard.check_dir(&args.out)?;
-    guard.check_file(&args.out.join("classes.toml"))?;
+    for own in ["classes.toml", "areas.csv", "areas.json"] {
+        guard.check_file(&args.out.join(own))?;
+    }
     let mut seen = std::collections::HashMap::new();
     for image in images {
         let stem = stem_of(image);
@@ -178,6 +183,7 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
     }
     crate::tiling::check_tile(args.tile)?;
     let (model, model_sha256) = crate::model::load_with_sha256(&args.model)?;
+    let smoothing = args.smoothing.settings(&model.smoothing)?;
     let all = list_inputs(&args.inputs)?;
     let n_all = all.len();
     let images = match args.shard {
@@ -208,6 +214,7 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
         force: args.force,
         roi: roi.as_ref(),
         tile: args.tile,
+        smoothing,
     };
     check_outputs(
         &args,
@@ -264,11 +271,12 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
         )
     } else {
         format!(
-            "segmented {} image{} ({:.2} Mpx, {:.2} Mpx/s) in {:.1} s{}; label maps in {}",
+            "segmented {} image{} ({:.2} Mpx, {:.2} Mpx/s, smoothing {}) in {:.1} s{}; label maps in {}",
             summary.done,
             if summary.done == 1 { "" } else { "s" },
             summary.pixels as f64 / 1e6,
             summary.pixels as f64 / 1e6 / summary.seconds.max(1e-9),
+            crate::prediction::describe(&job.smoothing),
             summary.seconds,
             match summary.skipped {
                 0 => String::new(),

@@ -27,6 +27,9 @@ pub struct AreasArgs {
     pub json: Option<PathBuf>,
     #[command(flatten)]
     pub labels: LabelArgs,
+    /// Replace existing files in the output places that grove did not write.
+    #[arg(long)]
+    pub force: bool,
 }
 
 pub fn run(args: AreasArgs) -> Result<()> {
@@ -52,6 +55,14 @@ pub fn run(args: AreasArgs) -> Result<()> {
     }
     let k = classes.len();
     let maps = list_images(&args.maps.join("labels"))?;
+    if let Some(json) = &args.json {
+        let inputs = [table_path.as_path(), ref_table_path.as_path()];
+        crate::output_guard::OutputGuard::new(
+            inputs.into_iter().chain(maps.iter().map(PathBuf::as_path)),
+            args.force,
+        )
+        .check_file(json)?;
+    }
     if maps.is_empty() {
         return Err(GroveError::input(args.maps.join("labels"), "no label maps"));
     }

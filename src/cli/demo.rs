@@ -9,11 +9,15 @@ use crate::dataset::{Dataset, ImageEntry, LabelOptions};
 use crate::demo::write_demo_dataset;
 use crate::error::Result;
 use crate::eval::areas::{count_classes, AreaTable};
-use crate::eval::score::{evaluate_with, MetricsReport};
+use crate::eval::score::{evaluate_smoothed, MetricsReport};
+use crate::eval::smoothing_strength::choose_strength;
 use crate::imageio::{read_image, write_atomic, RasterImage};
 use crate::outputs::{write_outputs, OutputOptions};
+use crate::prediction::{describe, Prediction};
 use crate::progress::Progress;
-use crate::segmenter::{Probabilities, TrainConfig};
+use crate::segmenter::TrainConfig;
+use crate::smooth::{SmoothMethod, SmoothSettings};
+use crate::tiling::DEFAULT_TILE;
 
 #[derive(Args, Debug)]
 pub struct DemoArgs {
@@ -29,6 +33,9 @@ pub struct DemoArgs {
     /// Seed of the scene generator and of training.
     #[arg(long, default_value_t = 7)]
     pub seed: u64,
+    /// Replace existing files in the output places that grove did not write.
+    #[arg(long)]
+    pub force: bool,
 }
 
 pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
@@ -39,6 +46,8 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
     }
     let t0 = Instant::now();
     let out = &args.out;
+    crate::output_guard::OutputGuard::new(std::iter::empty(), args.force)
+        .check_grove_folder(out)?;
     let n_test = (args.images / 3).max(1);
     let n_train = args.images - n_test;
     let (train_dir, test_dir) = (out.join("train"), out.join("test"));
@@ -62,7 +71,18 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
         ..TrainConfig::default()
     };
     let t_train = Instant::now();
-    let model = cfg.fit(&train, &train.labelled(), progress)?;
+    let entries = train.labelled();
+    let choice = choose_strength(&cfg, &train, &entries, SmoothMethod::Expansion, progress)?;
+    let mut model = cfg.fit(&train, &entries, progress)?;
+    if let Some(c) = &choice {
+        model.smoothing = c.default();
+        println!(
+            "smoothing strength {} chosen on {} held-out training scenes (mean IoU/boundary F1 per strength: {})",
+            c.strength,
+            c.held_out.len(),
+            c.scores_line()
+        );
+    }
     let model_path = out.join("model.grove");
     crate::model::save(&model, &model_path)?;
     println!(
@@ -78,20 +98,59 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
         ..OutputOptions::default()
     };
     let areas = std::cell::RefCell::new(AreaTable::new(model.classes.names(), None));
-    let deliver = |e: &ImageEntry, img: &RasterImage, probs: &Probabilities| {
-        let index = write_outputs(&pred_dir, &e.stem, img, probs, &model.classes, &opts)?.index;
+    let deliver = |e: &ImageEntry, img: &RasterImage, pred: &Prediction| {
+        let index = write_outputs(&pred_dir, &e.stem, img, pred, &model.classes, &opts)?.index;
         let counts = count_classes(&index, model.classes.len(), None);
         areas.borrow_mut().add_counts(&e.stem, &counts);
         Ok(())
     };
-    let scores = evaluate_with(&model, &test, &test.labelled(), progress, deliver)?;
-    let report = MetricsReport::new(&scores, &model.classes);
+    // Scored without and with the model's smoothing, from one prediction per image; the
+    // smoothed maps are delivered.
+    let smoothing = model.smoothing.settings();
+    let none = SmoothSettings {
+        method: SmoothMethod::None,
+        ..SmoothSettings::default()
+    };
+    let settings = [none, smoothing.clone()];
+    let scores = evaluate_smoothed(
+        &model,
+        &test,
+        &test.labelled(),
+        DEFAULT_TILE,
+        &settings,
+        progress,
+        |e, img, preds| deliver(e, img, &preds[1]),
+    )?;
+    let reports: Vec<MetricsReport> = scores
+        .iter()
+        .zip(&settings)
+        .map(|(sc, st)| MetricsReport::new(sc, &model.classes).smoothed_with(st))
+        .collect();
+    let mut report = reports[1].clone();
     println!("\nheld-out scores:\n{}", report.to_table());
+    let f1 = |r: &MetricsReport| r.boundary_f1.map_or("-".into(), |b| format!("{b:.4}"));
+    println!(
+        "held-out without smoothing: mean IoU {:.4}, boundary F1 {}; with the model's smoothing ({}): mean IoU {:.4}, boundary F1 {}\n",
+        reports[0].mean_iou,
+        f1(&reports[0]),
+        describe(&smoothing),
+        reports[1].mean_iou,
+        f1(&reports[1])
+    );
+    report.smoothing = if smoothing.method == SmoothMethod::None {
+        Vec::new()
+    } else {
+        reports
+            .into_iter()
+            .zip(&settings)
+            .map(|(r, s)| (s.method.name().to_string(), r))
+            .collect()
+    };
     let metrics_path = out.join("metrics.json");
     write_atomic(&metrics_path, report.to_json().as_bytes())?;
     for e in &train.entries {
         let img = read_image(&e.image)?;
-        deliver(e, &img, &model.predict_proba(&img))?;
+        deliver(e, &img, &model.predict(&img, DEFAULT_TILE, &smoothing))?;
     }
     areas.borrow().write(&pred_dir)?;
     println!("outputs:");

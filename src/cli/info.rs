@@ -46,6 +46,10 @@ pub fn run(args: InfoArgs) -> Result<()> {
         c.forest.min_samples_leaf,
         if c.features.position { ", position on" } else { ", position off" }
     );
+    println!(
+        "  smoothing default: {} (apply/eval: --smooth, --smooth-strength override it)",
+        m.smoothing.describe()
+    );
     if let Some(oob) = p.oob_accuracy {
         println!("  out-of-bag accuracy on sampled pixels: {oob:.4}");
     }

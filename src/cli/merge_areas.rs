@@ -16,9 +16,21 @@ pub struct MergeAreasArgs {
     /// Write the merged table here (.csv or .json); without it, the CSV goes to stdout.
     #[arg(long, short, value_name = "FILE")]
     pub out: Option<PathBuf>,
+    /// Replace existing files in the output places that grove did not write.
+    #[arg(long)]
+    pub force: bool,
 }
 
 pub fn run(args: MergeAreasArgs) -> Result<()> {
+    if let Some(out) = &args.out {
+        let files: Vec<PathBuf> = args
+            .inputs
+            .iter()
+            .flat_map(|i| [i.clone(), i.join("areas.csv"), i.join("areas.json")])
+            .collect();
+        crate::output_guard::OutputGuard::new(files.iter().map(PathBuf::as_path), args.force)
+            .check_file(out)?;
+    }
     let table = merge_areas(&args.inputs)?;
     let Some(out) = &args.out else {
         print!("{}", table.to_csv());

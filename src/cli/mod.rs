@@ -2,13 +2,14 @@
 
 mod apply;
 mod areas;
+mod crossval;
 mod demo;
 mod eval;
 mod info;
 mod label;
 mod merge_areas;
 mod suggest;
-mod train;
+pub(crate) mod train;
 
 use clap::{Parser, Subcommand};
 
@@ -48,6 +49,12 @@ enum Command {
     /// Score a model on a labelled dataset: accuracy, IoU per class, confusion matrix.
     #[command(after_help = "Example:\n  grove eval fields.grove held-out/ --json scores.json")]
     Eval(eval::EvalArgs),
+    /// Cross-validate the training options by image: K folds, each scored by a model that
+    /// never saw its images.
+    #[command(
+        after_help = "Example:\n  grove crossval fields/ --folds 5 --trees 48 --json cv.json --report cv.html\n\nTakes the same training options as `grove train`; writes no model."
+    )]
+    Crossval(crossval::CrossvalArgs),
     /// Generate the synthetic farm dataset, train, score and apply, end to end.
     Demo(demo::DemoArgs),
     /// Merge the area tables (areas.csv/json) of several apply output folders, e.g. shards.
@@ -106,6 +113,7 @@ pub fn run() -> i32 {
         Command::Train(a) => train::run(a, progress),
         Command::Apply(a) => apply::run(a, progress),
         Command::Eval(a) => eval::run(a, progress),
+        Command::Crossval(a) => crossval::run(a, progress),
         Command::Demo(a) => demo::run(a, progress),
         Command::Info(a) => info::run(a),
         Command::MergeAreas(a) => merge_areas::run(a),
@@ -157,4 +165,57 @@ fn open_dataset(
         eprintln!("warning: {w}");
     }
     Ok(ds)
+}
+
+/// Smoothing options shared by `apply` and `eval` (and `train`, where they fix the model's
+/// default instead of searching for it).
+#[derive(clap::Args, Debug, Clone, Default)]
+pub struct SmoothArgs {
+    /// Pairwise smoothing of the label map (contrast-sensitive Potts CRF): expansion (graph
+    /// cuts, labels only), meanfield (also smooths the probabilities, so confidence and
+    /// uncertainty maps show the smoothed ones) or none. Default: the model's (`grove info`).
+    #[arg(long, value_name = "METHOD")]
+    pub smooth: Option<crate::smooth::SmoothMethod>,
+    /// Smoothing strength W ≥ 0 (0 = none): the cost, in units of −ln p, of two neighbouring
+    /// pixels of equal colour taking different classes. Default: the model's, or 3.
+    #[arg(long, value_name = "W", allow_negative_numbers = true)]
+    pub smooth_strength: Option<f32>,
+}
+
+impl SmoothArgs {
+    /// The settings to use: these options over the model's default `model`. A strength without
+    /// a method takes the model's method (expansion if the model smooths not at all); a
+    /// method without a strength takes the model's strength (3 if it has none).
+    pub fn settings(
+        &self,
+        model: &crate::prediction::SmoothDefault,
+    ) -> crate::Result<crate::smooth::SmoothSettings> {
+        use crate::smooth::{SmoothMethod, SmoothSettings};
+        check_strength(self.smooth_strength)?;
+        let model_smooths = model.method != SmoothMethod::None && model.strength > 0.0;
+        let method = self
+            .smooth
+            .unwrap_or(match (self.smooth_strength, model_smooths) {
+                (Some(_), false) => SmoothMethod::Expansion,
+                _ => model.method,
+            });
+        let strength = self.smooth_strength.unwrap_or(if model_smooths {
+            model.strength
+        } else {
+            SmoothSettings::default().strength
+        });
+        let settings = crate::prediction::SmoothDefault { method, strength }.settings();
+        settings.validate()?;
+        Ok(settings)
+    }
+}
+
+/// Checks a `--smooth-strength` value.
+pub(crate) fn check_strength(strength: Option<f32>) -> crate::Result<()> {
+    match strength {
+        Some(w) if !(w.is_finite() && w >= 0.0) => Err(GroveError::Config(format!(
+            "--smooth-strength {w}: give a finite number ≥ 0 (0 = no smoothing; 1–8 is the usual range)"
+        ))),
+        _ => Ok(()),
+    }
 }

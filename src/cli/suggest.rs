@@ -44,6 +44,9 @@ pub struct SuggestArgs {
     pub threshold: f32,
     #[command(flatten)]
     pub label_args: LabelArgs,
+    /// Replace existing files in the output places that grove did not write.
+    #[arg(long)]
+    pub force: bool,
 }
 
 /// The label file of `image`: `--labels DIR/STEM.png`, or `../labels/STEM.png` beside a
@@ -63,6 +66,30 @@ fn label_file(image: &Path, labels: Option<&Path>) -> Option<PathBuf> {
     candidate.is_file().then_some(candidate)
 }
 
+/// Every output place, checked before any image is read (see `output_guard`): a picture may
+/// be written for any of the images.
+fn check_outputs(args: &SuggestArgs, images: &[PathBuf]) -> Result<()> {
+    let label_files: Vec<PathBuf> = images
+        .iter()
+        .filter_map(|i| label_file(i, args.labels.as_deref()))
+        .collect();
+    let inputs = images
+        .iter()
+        .chain(&label_files)
+        .chain(&args.inputs)
+        .map(PathBuf::as_path)
+        .chain([args.model.as_path()]);
+    let guard = crate::output_guard::OutputGuard::new(inputs, args.force);
+    guard.check_dir(&args.out)?;
+    for image in images {
+        guard.check_file(&output_path(&args.out, &stem_of(image), "png"))?;
+    }
+    if let Some(json) = &args.json {
+        guard.check_file(json)?;
+    }
+    Ok(())
+}
+
 pub fn run(args: SuggestArgs, progress: Progress) -> Result<()> {
     if args.top == 0 {
         return Err(GroveError::Config("--top must be at least 1".into()));
@@ -80,6 +107,7 @@ pub fn run(args: SuggestArgs, progress: Progress) -> Result<()> {
     }
     let model = crate::model::load(&args.model)?;
     let images = list_inputs(&args.inputs)?;
+    check_outputs(&args, &images)?;
     let names = model.classes.names();
     let opts = args.label_args.options();
     let bar = progress.stage("suggesting", images.len() as u64);
@@ -137,8 +165,11 @@ pub fn run(args: SuggestArgs, progress: Progress) -> Result<()> {
         args.out.display()
     );
     if let Some(path) = &args.json {
-        let json = serde_json::to_string_pretty(&SuggestReport { images: ranked })
-            .expect("suggestions serialise")
+        let json = serde_json::to_string_pretty(&SuggestReport {
+            generator: crate::output_guard::generator(),
+            images: ranked,
+        })
+        .expect("suggestions serialise")
             + "\n";
         write_atomic(path, json.as_bytes())?;
         println!("ranking written to {}", path.display());

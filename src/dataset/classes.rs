@@ -23,6 +23,29 @@ pub struct ClassTable {
     classes: Vec<ClassInfo>,
 }
 
+/// One line for a TOML error (the toml crate's own message spans several lines, with a
+/// drawing of the place): where it is and what is wrong, in the words of the class table.
+fn toml_problem(text: &str, e: &toml::de::Error) -> String {
+    let what = e.message().trim().trim_end_matches('.').replace('\n', "; ");
+    if what == "missing field `class`" {
+        return "the class table has no [[class]] entries; add one (id, name, color) per class"
+            .into();
+    }
+    let what = what.replace("missing field", "missing key");
+    match e.span() {
+        Some(span) => {
+            let before = text.get(..span.start).unwrap_or(text);
+            let line = before.matches('\n').count() + 1;
+            let column = before[before.rfind('\n').map_or(0, |i| i + 1)..]
+                .chars()
+                .count()
+                + 1;
+            format!("invalid class table at line {line}, column {column}: {what}")
+        }
+        None => format!("invalid class table: {what}"),
+    }
+}
+
 #[derive(Deserialize)]
 #[serde(deny_unknown_fields)]
 struct TableFile {
@@ -99,8 +122,7 @@ impl ClassTable {
 
     /// Parses the TOML text; the error is a message without the file name.
     pub fn parse(text: &str, unlabelled: u8) -> std::result::Result<Self, String> {
-        let file: TableFile =
-            toml::from_str(text).map_err(|e| format!("invalid class table: {e}"))?;
+        let file: TableFile = toml::from_str(text).map_err(|e| toml_problem(text, &e))?;
         let mut classes = Vec::with_capacity(file.class.len());
         for c in file.class {
             if !(0..=255).contains(&c.id) {

@@ -50,6 +50,8 @@ pub struct ClassEstimate {
 /// The whole estimate, as `grove areas --json` writes it.
 #[derive(Clone, Debug, Serialize)]
 pub struct AreaEstimate {
+    /// Marks the file as grove's own (see `output_guard`).
+    pub generator: String,
     pub overall_accuracy: f64,
     pub overall_accuracy_ci95: [f64; 2],
     /// Mapped pixels (all strata).
@@ -216,6 +218,7 @@ pub fn estimate(
         .map(|h| w[h] * w[h] * vf[h] * q(h, h) * (1.0 - q(h, h)))
         .sum();
     AreaEstimate {
+        generator: crate::output_guard::generator(),
         overall_accuracy: overall,
         overall_accuracy_ci95: ci(overall, var_o.sqrt()),
         total_pixels: n_total,

@@ -129,11 +129,20 @@ pub struct AreaRow {
 
 #[derive(Serialize, Deserialize)]
 struct AreaJson {
+    /// "written by grove VERSION": marks the file as grove's own (see `output_guard`); absent
+    /// from files of older versions.
+    #[serde(default)]
+    generator: Option<String>,
     /// E.g. "0.05m"; null without a pixel size.
     pixel_size: Option<String>,
     classes: Vec<String>,
     rows: Vec<AreaRow>,
 }
+
+/// The first columns of every `areas.csv`. A CSV has no place for a signature that
+/// spreadsheets and `read.csv` would not show as data, so `output_guard` recognises grove's
+/// area tables by this header instead.
+pub const CSV_HEADER: &str = "image,class,pixels,fraction";
 
 impl AreaTable {
     pub fn new(classes: Vec<String>, pixel_size: Option<PixelSize>) -> Self {
@@ -259,7 +268,7 @@ impl AreaTable {
     }
 
     pub fn to_csv(&self) -> String {
-        let mut s = String::from("image,class,pixels,fraction");
+        let mut s = String::from(CSV_HEADER);
         if self.pixel_size.is_some() {
             s += ",area,unit";
         }
@@ -283,6 +292,7 @@ impl AreaTable {
 
     pub fn to_json(&self) -> String {
         let doc = AreaJson {
+            generator: Some(crate::output_guard::generator()),
             pixel_size: self.pixel_size.as_ref().map(PixelSize::to_string),
             classes: self.classes.clone(),
             rows: self.rows(),

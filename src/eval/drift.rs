@@ -75,7 +75,10 @@ impl FeatureMoments {
             return;
         }
         self.n += other.n;
-        self.sum.iter_mut().zip(&other.sum).for_each(|(a, b)| *a += b);
+        self.sum
+            .iter_mut()
+            .zip(&other.sum)
+            .for_each(|(a, b)| *a += b);
         self.sum_sq
             .iter_mut()
             .zip(&other.sum_sq)
@@ -256,10 +259,8 @@ mod tests {
             m.add_rows(&rows(shift), 4, 0);
             m
         };
-        let p = TrainingProfile::from_images(
-            vec![(100, 80), (100, 80)],
-            &[moments(0.0), moments(0.2)],
-        );
+        let p =
+            TrainingProfile::from_images(vec![(100, 80), (100, 80)], &[moments(0.0), moments(0.2)]);
         let names: Vec<String> = ["L", "a", "b", "dx"].map(String::from).to_vec();
         assert!(p.differences(120, 90, &moments(0.1), &names).is_empty());
         let d = p.differences(40, 30, &moments(5.0), &names);

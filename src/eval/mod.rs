@@ -1,12 +1,15 @@
-//! Evaluation of predicted label maps against ground truth, and what follows from the maps:
-//! area figures.
+//! Evaluation of predicted label maps against ground truth (also cross-validated by image),
+//! and what follows from the maps: area figures.
 
 pub mod area_estimate;
 pub mod areas;
 pub mod boundary;
 pub mod confusion;
+pub mod crossval;
+pub mod crossval_report;
 pub mod drift;
 pub mod score;
+pub mod smoothing_strength;
 pub mod suggest;
 pub mod uncertainty;
 

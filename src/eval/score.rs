@@ -7,9 +7,11 @@ use crate::error::{GroveError, Result};
 use crate::eval::boundary::{BoundaryCounts, DEFAULT_TOLERANCE};
 use crate::eval::confusion::ConfusionMatrix;
 use crate::imageio::RasterImage;
+use crate::prediction::Prediction;
 use crate::progress::Progress;
 use crate::segmenter::{Probabilities, Segmenter};
-use crate::tiling::{predict_tiled, DEFAULT_TILE};
+use crate::smooth::{SmoothMethod, SmoothSettings};
+use crate::tiling::DEFAULT_TILE;
 
 /// Pixel and boundary counts of one labelling of some images, pooled and per image.
 #[derive(Clone, Debug)]
@@ -82,6 +84,16 @@ impl Scores {
         self.boundary.mean_f1()
     }
 
+    /// Adds another labelling's counts (e.g. the held-out images of another cross-validation
+    /// fold), keeping its images' own scores.
+    pub fn merge(&mut self, other: &Scores) -> Result<()> {
+        self.confusion.merge(&other.confusion)?;
+        self.boundary.merge(&other.boundary)?;
+        self.per_image.extend(other.per_image.iter().cloned());
+        self.pixels += other.pixels;
+        Ok(())
+    }
+
     /// True when fewer than half the pixels are labelled (scribbles).
     pub fn sparse_labels(&self) -> bool {
         (self.confusion.total() as f64) < SPARSE_LABELS * self.pixels as f64
@@ -96,7 +108,34 @@ pub struct ImageReport {
     pub mean_iou: Option<f64>,
     pub boundary_f1: Option<f64>,
     pub labelled_pixels: u64,
+    /// Class name → predicted and true share of this image's labelled pixels.
+    pub area_fraction: serde_json::Map<String, serde_json::Value>,
 }
+
+/// A class's share of the labelled pixels in the prediction and in the truth. Only labelled
+/// pixels count: with scribbles these are shares of the strokes, not of the scene.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+pub struct AreaFraction {
+    pub predicted: f64,
+    #[serde(rename = "true")]
+    pub truth: f64,
+}
+
+/// Per class, its [`AreaFraction`] over the labelled pixels of `cm` (all 0 when none are).
+pub fn area_fractions(cm: &ConfusionMatrix) -> Vec<AreaFraction> {
+    let total = cm.total().max(1) as f64;
+    (0..cm.n_classes())
+        .map(|c| AreaFraction {
+            predicted: cm.predicted_count(c) as f64 / total,
+            truth: cm.truth_count(c) as f64 / total,
+        })
+        .collect()
+}
+
+/// What the area fractions are shares of (written beside them, because with scribble
+/// labels they are not shares of the scene).
+pub const AREA_FRACTION_BASIS: &str =
+    "labelled pixels only: the share of each class among the pixels that have a true label, in the truth and in the prediction there";
 
 /// The scores as written by `--json` and by the demo's `metrics.json`.
 #[derive(Clone, Debug, Serialize)]
@@ -124,7 +163,32 @@ pub struct MetricsReport {
     /// Share of the scored images' pixels that are labelled (below 0.5: scribbles, and
     /// boundary F1 only sees where strokes of two classes touch).
     pub labelled_fraction: f64,
+    /// Class name → {"predicted", "true"}: share of the labelled pixels ([`AreaFraction`]).
+    pub area_fraction: serde_json::Map<String, serde_json::Value>,
+    /// What `area_fraction` is a share of ([`AREA_FRACTION_BASIS`]).
+    pub area_fraction_basis: String,
     pub per_image: Vec<ImageReport>,
+    /// The smoothing the maps were made with ("none", "expansion", "meanfield").
+    pub smooth_method: String,
+    /// Its strength (0 for none).
+    pub smooth_strength: f32,
+    /// `eval --compare-smoothing`: method name → the same report for that method, in the
+    /// order none, expansion, meanfield.
+    #[serde(skip_serializing_if = "Vec::is_empty", serialize_with = "ordered_map")]
+    pub smoothing: Vec<(String, MetricsReport)>,
+}
+
+/// A list of pairs as a JSON object that keeps their order.
+fn ordered_map<S: serde::Serializer>(
+    pairs: &[(String, MetricsReport)],
+    ser: S,
+) -> std::result::Result<S::Ok, S::Error> {
+    use serde::ser::SerializeMap;
+    let mut map = ser.serialize_map(Some(pairs.len()))?;
+    for (k, v) in pairs {
+        map.serialize_entry(k, v)?;
+    }
+    map.end()
 }
 
 impl MetricsReport {
@@ -144,12 +208,15 @@ impl MetricsReport {
                 .collect()
         };
         let k = classes.len();
+        let areas = |cm: &ConfusionMatrix| {
+            names
+                .iter()
+                .zip(area_fractions(cm))
+                .map(|(n, a)| (n.clone(), serde_json::json!(a)))
+                .collect()
+        };
         MetricsReport {
-            generator: format!(
-                "{} {}",
-                crate::output_guard::SIGNATURE,
-                env!("CARGO_PKG_VERSION")
-            ),
+            generator: crate::output_guard::generator(),
             pixel_accuracy: cm.pixel_accuracy().unwrap_or(0.0),
             mean_iou: cm.mean_iou().unwrap_or(0.0),
             mean_class_accuracy: cm.mean_class_accuracy().unwrap_or(0.0),
@@ -165,6 +232,8 @@ impl MetricsReport {
             per_class_boundary_f1: by_name(scores.boundary.per_class_f1()),
             boundary_tolerance_px: scores.boundary.tolerance(),
             labelled_fraction: cm.total() as f64 / scores.pixels.max(1) as f64,
+            area_fraction: areas(cm),
+            area_fraction_basis: AREA_FRACTION_BASIS.into(),
             per_image: scores
                 .per_image
                 .iter()
@@ -174,9 +243,47 @@ impl MetricsReport {
                     mean_iou: i.confusion.mean_iou(),
                     boundary_f1: i.boundary.mean_f1(),
                     labelled_pixels: i.confusion.total(),
+                    area_fraction: areas(&i.confusion),
                 })
                 .collect(),
+            smooth_method: SmoothMethod::None.name().into(),
+            smooth_strength: 0.0,
+            smoothing: Vec::new(),
         }
+    }
+
+    /// Records that the maps were smoothed with `settings`.
+    pub fn smoothed_with(mut self, settings: &SmoothSettings) -> Self {
+        self.smooth_method = settings.method.name().into();
+        self.smooth_strength = match settings.method {
+            SmoothMethod::None => 0.0,
+            _ => settings.strength,
+        };
+        self
+    }
+
+    /// Side-by-side scores of several smoothings (`eval --compare-smoothing`).
+    pub fn comparison_table(&self) -> String {
+        let mut s = "the same forest prediction, smoothed three ways:\n".to_string();
+        s += &format!(
+            "{:<26}  {:>8}  {:>8}  {:>11}  {:>14}\n",
+            "smoothing", "accuracy", "mean IoU", "boundary F1", "class accuracy"
+        );
+        for (_, r) in &self.smoothing {
+            let method = match r.smooth_method.as_str() {
+                "none" => "none".to_string(),
+                m => format!("{m}, strength {}", r.smooth_strength),
+            };
+            s += &format!(
+                "{:<26}  {:>8.4}  {:>8.4}  {:>11}  {:>14.4}\n",
+                method,
+                r.pixel_accuracy,
+                r.mean_iou,
+                r.boundary_f1.map_or("-".to_string(), |b| format!("{b:.4}")),
+                r.mean_class_accuracy
+            );
+        }
+        s
     }
 
     pub fn to_json(&self) -> String {
@@ -196,8 +303,12 @@ impl MetricsReport {
             v.as_f64()
                 .map_or("   -  ".to_string(), |x| format!("{x:6.4}"))
         };
+        let smoothing = match self.smooth_method.as_str() {
+            "none" => "no smoothing".to_string(),
+            m => format!("smoothing {m}, strength {}", self.smooth_strength),
+        };
         let mut s = format!(
-            "{} images, {} labelled pixels\npixel accuracy {:.4}   mean IoU {:.4}   mean class accuracy {:.4}   boundary F1 {} (within {} px)\n",
+            "{} images, {} labelled pixels, {smoothing}\npixel accuracy {:.4}   mean IoU {:.4}   mean class accuracy {:.4}   boundary F1 {} (within {} px)\n",
             self.images.len(),
             self.labelled_pixels,
             self.pixel_accuracy,
@@ -210,18 +321,27 @@ impl MetricsReport {
             s += &format!("note: {note}\n");
         }
         s += &format!(
-            "\n{:<width$}  {:>6}  {:>8}  {:>11}\n",
-            "class", "IoU", "accuracy", "boundary F1"
+            "\n{:<width$}  {:>6}  {:>8}  {:>11}  {:>9}  {:>9}\n",
+            "class", "IoU", "accuracy", "boundary F1", "true area", "predicted"
         );
         for name in &self.classes {
+            let area = |key: &str| {
+                self.area_fraction[name][key]
+                    .as_f64()
+                    .map_or("-".into(), |a| format!("{:.1} %", 100.0 * a))
+            };
             s += &format!(
-                "{:<width$}  {}  {:>8}  {:>11}\n",
+                "{:<width$}  {}  {:>8}  {:>11}  {:>9}  {:>9}\n",
                 name,
                 fmt(&self.per_class_iou[name]),
                 fmt(&self.per_class_accuracy[name]),
-                fmt(&self.per_class_boundary_f1[name])
+                fmt(&self.per_class_boundary_f1[name]),
+                area("true"),
+                area("predicted")
             );
         }
+        s +=
+            "(area: share of the labelled pixels only, in the truth and in the prediction there)\n";
         if self.per_image.len() > 1 {
             let iw = self
                 .per_image
@@ -334,7 +454,8 @@ where
 }
 
 /// As [`evaluate_with`], predicting in tiles of `tile` pixels (0 = whole images); the scores
-/// do not depend on it (tiled prediction is bit-identical), only memory and speed do.
+/// do not depend on it (tiled prediction is bit-identical), only memory and speed do. No
+/// smoothing: [`evaluate_smoothed`] scores smoothed maps.
 pub fn evaluate_tiled<F>(
     model: &Segmenter,
     dataset: &Dataset,
@@ -346,23 +467,50 @@ pub fn evaluate_tiled<F>(
 where
     F: FnMut(&ImageEntry, &RasterImage, &Probabilities) -> Result<()>,
 {
-    let mut scores = Scores::new(model.classes.len());
+    let none = SmoothSettings {
+        method: SmoothMethod::None,
+        ..SmoothSettings::default()
+    };
+    let scores = evaluate_smoothed(
+        model,
+        dataset,
+        entries,
+        tile,
+        &[none],
+        progress,
+        |e, img, p| visit(e, img, &p[0].probabilities),
+    )?;
+    Ok(scores.into_iter().next().expect("one setting, one score"))
+}
+
+/// Scores the maps of every labelled image in `entries` under each of `settings`
+/// (validated), from one forest prediction per image ([`Segmenter::predictions`]), and
+/// hands the predictions, in `settings` order, to `visit`. One [`Scores`] per setting.
+pub fn evaluate_smoothed<F>(
+    model: &Segmenter,
+    dataset: &Dataset,
+    entries: &[&ImageEntry],
+    tile: usize,
+    settings: &[SmoothSettings],
+    progress: Progress,
+    mut visit: F,
+) -> Result<Vec<Scores>>
+where
+    F: FnMut(&ImageEntry, &RasterImage, &[Prediction]) -> Result<()>,
+{
+    let mut scores = vec![Scores::new(model.classes.len()); settings.len()];
     let bar = progress.stage("scoring", entries.len() as u64);
     for e in entries {
         let (img, labels) = dataset.load_pair(e)?;
-        let probs = predict_tiled(model, &img, tile);
-        scores.add(
-            &e.stem,
-            img.width,
-            img.height,
-            &labels.indices,
-            &probs.argmax(),
-        )?;
-        visit(e, &img, &probs)?;
+        let predictions = model.predictions(&img, tile, settings);
+        for (s, p) in scores.iter_mut().zip(&predictions) {
+            s.add(&e.stem, img.width, img.height, &labels.indices, &p.labels)?;
+        }
+        visit(e, &img, &predictions)?;
         bar.inc(1);
     }
     bar.finish_and_clear();
-    if scores.confusion.total() == 0 {
+    if scores.first().is_some_and(|s| s.confusion.total() == 0) {
         return Err(GroveError::Data(format!(
             "{}: the scored images have no labelled pixels",
             dataset.root.display()
@@ -407,6 +555,13 @@ mod tests {
         assert_eq!(r.per_image[1].boundary_f1, None);
         assert_eq!(r.boundary_f1, Some(1.0));
         assert_eq!(r.labelled_fraction, 6.0 / 8.0);
+        // Areas over labelled pixels only, counted by hand: truth a = 2 + 1 of 6, predicted
+        // a = 1 + 1 of 6; the dense image alone: truth a 2 of 4, predicted 1 of 4.
+        assert_eq!(r.area_fraction["a"]["true"], 0.5);
+        assert_eq!(r.area_fraction["a"]["predicted"], 2.0 / 6.0);
+        assert_eq!(r.per_image[0].area_fraction["a"]["predicted"], 0.25);
+        assert_eq!(r.per_image[0].area_fraction["b"]["true"], 0.5);
+        assert!(r.to_table().contains("33.3 %"));
         let json: serde_json::Value = serde_json::from_str(&r.to_json()).unwrap();
         for key in [
             "boundary_f1",

@@ -92,6 +92,8 @@ pub struct ImageSuggestion {
 /// The JSON of `grove suggest --json`: images best first.
 #[derive(Serialize)]
 pub struct SuggestReport {
+    /// Marks the file as grove's own (see `output_guard`).
+    pub generator: String,
     pub images: Vec<ImageSuggestion>,
 }
 

@@ -1,8 +1,10 @@
 //! Work that takes longer than a request: training (`TrainConfig::fit` on a background
 //! thread, its stages followed through `Progress::observed`, so the page keeps working and
 //! polls for progress), and the layers computed from the current model for one image
-//! (prediction and uncertainty from `predict_proba`, the smoothed prediction from
-//! `smooth::smooth`), cached per model generation.
+//! (prediction, uncertainty and the prediction smoothed with the model's default, from
+//! `Segmenter::predictions`), cached per model generation. With enough labelled images,
+//! training also cross-validates by image (`eval::crossval`, the call `grove crossval`
+//! makes), and the page shows that score instead of the optimistic out-of-bag one.
 
 use std::collections::HashMap;
 use std::path::Path;
@@ -19,10 +21,14 @@ use super::Workspace;
 use crate::dataset::{Dataset, UNLABELLED};
 use crate::error::Result;
 use crate::eval::areas::{count_classes, AreaTable};
+use crate::eval::crossval::cross_validate;
+use crate::eval::crossval_report::CrossvalReport;
 use crate::imageio::{encode_png, read_image};
+use crate::prediction::Prediction;
 use crate::progress::Progress;
 use crate::segmenter::{Segmenter, TrainConfig};
-use crate::smooth::{smooth, SmoothSettings};
+use crate::smooth::{SmoothMethod, SmoothSettings};
+use crate::tiling::DEFAULT_TILE;
 
 /// The stage bar of the training that is running (one per process: `Progress` observers
 /// are plain functions).
@@ -48,7 +54,7 @@ struct ImageLayers {
     prediction: Vec<u8>,
     /// 0 = sure, 1 = as unsure as the class count allows.
     uncertainty: Vec<f32>,
-    /// Class index per pixel after pairwise smoothing (`smooth::smooth`, default settings).
+    /// Class index per pixel after pairwise smoothing (the model's default settings).
     smoothed: Vec<u8>,
 }
 
@@ -58,6 +64,24 @@ pub struct Jobs {
     generation: AtomicU64,
     train: Mutex<TrainState>,
     layers: Mutex<Vec<(String, u64, Arc<ImageLayers>)>>,
+    held_out: Mutex<Option<HeldOut>>,
+}
+
+/// Fewest labelled images for which the workspace cross-validates after training. Below it
+/// a fold would train on one or two images and its score say little; a rule of thumb, not a
+/// measurement.
+pub const CROSSVAL_MIN_IMAGES: usize = 4;
+
+/// Folds of the workspace's cross-validation (fewer images: leave-one-image-out).
+const CROSSVAL_FOLDS: usize = 5;
+
+/// A cross-validation of the training that made one model generation.
+struct HeldOut {
+    generation: u64,
+    /// What `model_summary` shows as `scores`.
+    summary: Value,
+    /// Mean IoU per image name, each scored by a fold model that did not see it.
+    per_image: HashMap<String, f64>,
 }
 
 /// Layer sets cached (each is a few bytes per pixel).
@@ -76,6 +100,7 @@ impl Jobs {
             model: RwLock::new(model),
             train: Mutex::new(TrainState::Idle),
             layers: Mutex::new(Vec::new()),
+            held_out: Mutex::new(None),
         })
     }
 
@@ -90,16 +115,21 @@ impl Jobs {
             return Value::Null;
         };
         let p = &m.provenance;
+        let held_out = self.held_out.lock().expect("held-out lock poisoned");
+        let scores = match held_out.as_ref().filter(|h| h.generation == generation) {
+            Some(h) => h.summary.clone(),
+            None => json!({
+                "kind": "oob",
+                "oob_accuracy": p.oob_accuracy,
+                "caveat": format!("out-of-bag accuracy on sampled pixels of the training images: optimistic, because pixels of one image are alike; a held-out image score is the honest one (from {CROSSVAL_MIN_IMAGES} labelled images on, training also cross-validates by image)"),
+            }),
+        };
         json!({
             "generation": generation,
             "classes": m.classes.names(),
             "images": p.training_images.len(),
             "created_unix": p.created_unix,
-            "scores": {
-                "kind": "oob",
-                "oob_accuracy": p.oob_accuracy,
-                "caveat": "out-of-bag accuracy on sampled pixels of the training images: optimistic, because pixels of one image are alike; a held-out image score is the honest one",
-            },
+            "scores": scores,
         })
     }
 
@@ -110,7 +140,12 @@ impl Jobs {
 
     /// Last held-out score per image name, when known.
     pub fn image_scores(&self) -> HashMap<String, f64> {
-        HashMap::new()
+        let generation = self.generation.load(Ordering::SeqCst);
+        let held_out = self.held_out.lock().expect("held-out lock poisoned");
+        held_out
+            .as_ref()
+            .filter(|h| h.generation == generation)
+            .map_or_else(HashMap::new, |h| h.per_image.clone())
     }
 
     pub fn status_json(&self) -> Value {
@@ -160,9 +195,15 @@ pub fn start_training(ws: &Arc<Workspace>) -> Reply {
         let outcome = train(&ws);
         let mut state = ws.jobs.train.lock().expect("train lock poisoned");
         *state = match outcome {
-            Ok((model, images)) => {
+            Ok((model, images, held_out)) => {
                 *ws.jobs.model.write().expect("model lock poisoned") = Some(Arc::new(model));
-                ws.jobs.generation.fetch_add(1, Ordering::SeqCst);
+                let generation = ws.jobs.generation.fetch_add(1, Ordering::SeqCst) + 1;
+                *ws.jobs.held_out.lock().expect("held-out lock poisoned") =
+                    held_out.map(|(summary, per_image)| HeldOut {
+                        generation,
+                        summary,
+                        per_image,
+                    });
                 TrainState::Done {
                     seconds: started.elapsed().as_secs_f64(),
                     images,
@@ -176,8 +217,13 @@ pub fn start_training(ws: &Arc<Workspace>) -> Reply {
     Reply::json(202, &json!({"state": "running"}))
 }
 
-/// The same call as `grove train DATA --model FILE` with default settings.
-fn train(ws: &Workspace) -> Result<(Segmenter, usize)> {
+/// Cross-validation figures for the page: its `scores` object and mean IoU per image.
+type HeldOutFigures = (Value, HashMap<String, f64>);
+
+/// The same call as `grove train DATA --model FILE` with default settings, then, with at
+/// least [`CROSSVAL_MIN_IMAGES`] images, the call of `grove crossval DATA` (a failed
+/// cross-validation, e.g. a fold left with one class, leaves the out-of-bag score shown).
+fn train(ws: &Workspace) -> Result<(Segmenter, usize, Option<HeldOutFigures>)> {
     let ds = Dataset::open(&ws.root, ws.label_options)?;
     // A label file the page saved empty (everything erased) is not a training image.
     let mut entries = Vec::new();
@@ -192,9 +238,49 @@ fn train(ws: &Workspace) -> Result<(Segmenter, usize)> {
             entries.push(e);
         }
     }
-    let model = TrainConfig::default().fit(&ds, &entries, Progress::observed(observe_stage))?;
+    let config = TrainConfig::default();
+    let progress = Progress::observed(observe_stage);
+    let model = config.fit(&ds, &entries, progress)?;
     crate::model::save(&model, &ws.model_path)?;
-    Ok((model, entries.len()))
+    let held_out = (entries.len() >= CROSSVAL_MIN_IMAGES)
+        .then(|| {
+            let tile = crate::tiling::DEFAULT_TILE;
+            cross_validate(
+                &config,
+                &ds,
+                &entries,
+                CROSSVAL_FOLDS,
+                tile,
+                &model.smoothing.settings(),
+                progress,
+                |_, _, _, _| Ok(()),
+            )
+            .ok()
+        })
+        .flatten()
+        .map(|cv| held_out_figures(&CrossvalReport::new(&cv, &ds.classes)));
+    Ok((model, entries.len(), held_out))
+}
+
+/// What the page shows of a cross-validation (keys read by `renderModel` in app.js).
+fn held_out_figures(r: &CrossvalReport) -> HeldOutFigures {
+    let mean = r.summary.mean_iou;
+    let summary = json!({
+        "kind": "crossval",
+        "folds": r.n_folds,
+        "mean_iou": mean.map_or(r.pooled.mean_iou, |m| m.mean),
+        "mean_iou_sd": mean.and_then(|m| m.sd).unwrap_or(0.0),
+        "pixel_accuracy": r.pooled.pixel_accuracy,
+        "per_class_iou": r.pooled.per_class_iou,
+        "caveat": "cross-validated by image: each image scored by a model trained without it (mean ± sd over folds; per-class IoU pooled over all held-out images)",
+    });
+    let per_image = r
+        .pooled
+        .per_image
+        .iter()
+        .filter_map(|i| Some((i.image.clone(), i.mean_iou?)))
+        .collect();
+    (summary, per_image)
 }
 
 pub fn training_status(ws: &Workspace) -> Reply {
@@ -232,7 +318,18 @@ fn layers_of(
             "the model was trained on grey images; this one is in colour: retrain",
         ));
     }
-    let probs = model.predict_proba(&image);
+    // Unsmoothed and with the model's default smoothing, from one forest pass (the same
+    // library call as `grove apply` and `grove eval`).
+    let none = SmoothSettings {
+        method: SmoothMethod::None,
+        ..SmoothSettings::default()
+    };
+    let settings = [none, model.smoothing.settings()];
+    let [plain, smoothed]: [Prediction; 2] = model
+        .predictions(&image, DEFAULT_TILE, &settings)
+        .try_into()
+        .expect("two settings, two predictions");
+    let probs = plain.probabilities;
     let k = probs.n_classes as f32;
     let floor = 1.0 / k;
     let uncertainty = probs
@@ -240,14 +337,12 @@ fn layers_of(
         .into_iter()
         .map(|c| ((1.0 - c) / (1.0 - floor)).clamp(0.0, 1.0))
         .collect();
-    let settings = SmoothSettings::default();
-    let smoothed = smooth(&probs, &model.features.lab(&image), &settings, None).labels;
     let layers = Arc::new(ImageLayers {
         width: probs.width,
         height: probs.height,
-        prediction: probs.argmax(),
+        prediction: plain.labels,
         uncertainty,
-        smoothed,
+        smoothed: smoothed.labels,
     });
     let mut cache = ws.jobs.layers.lock().expect("layer lock poisoned");
     cache.retain(|(n, _, _)| n != name);

@@ -14,12 +14,19 @@
 //! and pixels that can never profit from switching are fixed and not part of the cut; their
 //! pairs become unary terms of the free neighbour.
 //!
-//! Speed (measured on the demo maps, see `benches/smooth.rs`):
+//! Speed (measured on the demo maps, see `benches/smooth.rs` and the README):
 //! * a pixel whose switch cost `U_p(α) − U_p(l_p)` exceeds the sum of its incident weights can
 //!   never lower the energy by switching, whatever its neighbours do, so it is fixed at "keep"
-//!   (an exact reduction); on forest maps most pixels are fixed for most labels and a label
-//!   with no free pixel costs no cut at all;
-//! * one [`GridMaxFlow`] is allocated once and refilled per move.
+//!   (an exact reduction) and left out of the cut; at low strength that is most pixels, at the
+//!   default strength 5–50 % per label on the 1024² demo map;
+//! * the costs are scaled to integers once per image, and each move's graph is filled row by
+//!   row in parallel, every pixel gathering its own arcs, so no float work or rounding is left
+//!   in the moves and the result does not depend on the thread count;
+//! * a move's energy change is summed over the switched pixels only;
+//! * the cycles stop as soon as every label has been tried since the last accepted move (a
+//!   move repeated on its own result cannot help), not after a whole unchanged cycle;
+//! * one [`GridMaxFlow`] is allocated once and refilled per move; its set-up visits only the
+//!   free pixels.
 //!
 //! Capacities: the float energy is scaled to `i32` (largest |capacity| ≈ 2²⁴, so rounding
 //! changes a move's cost by ~10⁻⁷ relative) because the max-flow is exact and terminates
@@ -27,8 +34,10 @@
 //! only if its energy, evaluated exactly in f64 on the original costs, is lower, so rounding can
 //! never make the energy increase.
 
-use super::energy::{PottsEnergy, FORWARD};
-use super::maxflow::{Capacity, GridMaxFlow, Segment};
+use rayon::prelude::*;
+
+use super::energy::PottsEnergy;
+use super::maxflow::{Capacity, FlowStart, GridMaxFlow, Segment, DIRECTIONS};
 
 /// Result of [`alpha_expansion`].
 #[derive(Clone, Debug)]
@@ -53,7 +62,13 @@ pub fn alpha_expansion(e: &PottsEnergy) -> Expansion {
 }
 
 /// Alpha-expansion from the labelling `labels`.
-pub fn alpha_expansion_from(e: &PottsEnergy, mut labels: Vec<u8>) -> Expansion {
+pub fn alpha_expansion_from(e: &PottsEnergy, labels: Vec<u8>) -> Expansion {
+    alpha_expansion_with(e, labels, FlowStart::default())
+}
+
+/// Alpha-expansion from `labels` with the max-flow started by `start` (for the benchmark
+/// that compares the starts; the energies agree up to ties between equal cuts).
+pub fn alpha_expansion_with(e: &PottsEnergy, mut labels: Vec<u8>, start: FlowStart) -> Expansion {
     assert_eq!(labels.len(), e.n_pixels(), "labels length");
     let mut energy = e.energy(&labels);
     let mut history = vec![energy];
@@ -66,37 +81,38 @@ pub fn alpha_expansion_from(e: &PottsEnergy, mut labels: Vec<u8>) -> Expansion {
             cuts,
         };
     }
-    let wsum = e.incident_weight_sums();
-    let scale = capacity_scale(e, &wsum);
+    let costs = ScaledCosts::new(e);
     let mut mv = Move::new(e);
-    let mut candidate = labels.clone();
-    for _ in 0..MAX_CYCLES {
-        let mut improved = false;
+    // Moves since the last accepted one, counting that one: a move repeated on its own
+    // result cannot help, so once every label has been tried since the last change the
+    // labelling is a fixed point and the cycles stop.
+    let mut since_change = 0;
+    'cycles: for _ in 0..MAX_CYCLES {
         for alpha in 0..e.n_labels as u8 {
-            if !mv.build(e, &labels, &wsum, alpha, scale) {
+            if since_change >= e.n_labels {
+                break 'cycles;
+            }
+            since_change += 1;
+            if !mv.build(e, &costs, &labels, alpha) {
                 continue;
             }
             cuts += 1;
-            mv.graph.max_flow();
-            candidate.copy_from_slice(&labels);
-            if !mv.apply(e, alpha, &mut candidate) {
-                continue;
-            }
-            let new_energy = e.energy(&candidate);
-            if new_energy < energy {
-                std::mem::swap(&mut labels, &mut candidate);
-                energy = new_energy;
+            mv.graph.max_flow_on_from(&mv.nodes, start);
+            let delta = mv.switched_delta(e, &labels, alpha);
+            if delta < 0.0 {
+                for &p in &mv.switched {
+                    labels[p as usize] = alpha;
+                }
+                energy += delta;
                 history.push(energy);
-                improved = true;
+                since_change = 1;
             }
-        }
-        if !improved {
-            break;
         }
     }
     Expansion {
+        // The running sum can differ from a fresh sum in the last bits.
+        energy: e.energy(&labels),
         labels,
-        energy,
         history,
         cuts,
     }
@@ -118,13 +134,115 @@ fn capacity_scale(e: &PottsEnergy, wsum: &[f32]) -> f32 {
     }
 }
 
+/// `round(v)`, half away from zero like `f32::round`, without its libm call (the rounding
+/// was a tenth of the expansion's time); exact for |v| < 2³¹ since f64 holds `v ± ½`.
+#[inline]
+fn round_to_capacity(v: f32) -> Capacity {
+    let v = v as f64;
+    (if v >= 0.0 { v + 0.5 } else { v - 0.5 }) as Capacity
+}
+
+/// The energy in capacity units, scaled once per image so that every move's graph is
+/// integer additions only.
+struct ScaledCosts {
+    /// `U_p(c) − min_c U_p(c)`, scaled, pixel-major.
+    unary: Vec<Capacity>,
+    /// The forward weights, scaled (`PottsEnergy::weights`' layout).
+    weights: Vec<Capacity>,
+    /// Per pixel, the sum of its incident scaled weights.
+    wsum: Vec<Capacity>,
+}
+
+impl ScaledCosts {
+    fn new(e: &PottsEnergy) -> Self {
+        let (w, h, n) = (e.width, e.height, e.n_labels);
+        let scale = capacity_scale(e, &e.incident_weight_sums());
+        let mut unary = vec![0; w * h * n];
+        unary
+            .par_chunks_mut(n)
+            .zip(e.unary.par_chunks(n))
+            .for_each(|(out, u)| {
+                let lo = u.iter().copied().fold(f32::INFINITY, f32::min);
+                for (o, &v) in out.iter_mut().zip(u) {
+                    *o = round_to_capacity((v - lo) * scale);
+                }
+            });
+        let weights: Vec<Capacity> = e
+            .weights
+            .par_iter()
+            .map(|&v| round_to_capacity(v * scale))
+            .collect();
+        let mut wsum = vec![0; w * h];
+        if w > 0 {
+            wsum.par_chunks_mut(w).enumerate().for_each(|(y, row)| {
+                for (x, s) in row.iter_mut().enumerate() {
+                    *s = (0..8)
+                        .filter_map(|dir| neighbour(w, h, x, y, dir))
+                        .map(|(q, slot)| weights[slot_index(y * w + x, q, slot)])
+                        .sum();
+                }
+            });
+        }
+        ScaledCosts {
+            unary,
+            weights,
+            wsum,
+        }
+    }
+}
+
+/// The pixel in max-flow direction `dir` ([`DIRECTIONS`]) from `(x, y)`, if inside the grid,
+/// and where the pair's weight is stored: direction `2d` is [`FORWARD`](super::energy::FORWARD)`[d]`, so its weight
+/// is the pixel's own slot `d`; `2d + 1` is the reverse, stored at the neighbour.
+#[inline]
+fn neighbour(w: usize, h: usize, x: usize, y: usize, dir: usize) -> Option<(usize, usize)> {
+    let (dx, dy) = DIRECTIONS[dir];
+    let (nx, ny) = (x as isize + dx, y as isize + dy);
+    (nx >= 0 && ny >= 0 && (nx as usize) < w && (ny as usize) < h)
+        .then(|| (ny as usize * w + nx as usize, dir))
+}
+
+/// Index into a weights array of the pair `p`–`q` reached in direction `dir` from `p`.
+#[inline]
+fn slot_index(p: usize, q: usize, dir: usize) -> usize {
+    if dir.is_multiple_of(2) {
+        p * 4 + dir / 2
+    } else {
+        q * 4 + dir / 2
+    }
+}
+
 /// The reusable buffers of one expansion move.
 struct Move {
     graph: GridMaxFlow,
-    /// Per pixel: [`FREE_VAR`], [`FIXED_ALPHA`] or [`FIXED_KEEP`].
+    /// Per pixel: [`FREE_VAR`], [`FIXED_ALPHA`] or [`FIXED_KEEP`], this move's.
     state: Vec<u8>,
-    /// Switch cost minus keep cost, accumulated in energy units.
-    t: Vec<f32>,
+    /// The previous move's, to clear the capacities of pixels no longer free.
+    previous: Vec<u8>,
+    /// The free pixels' graph nodes and pixel indices, ascending.
+    nodes: Vec<u32>,
+    pixels: Vec<u32>,
+    /// The free pixels the cut switches to α.
+    switched: Vec<u32>,
+    /// Marks `switched` while the move's energy change is summed.
+    moved: Vec<bool>,
+}
+
+/// For a free pixel `p` and its neighbour `q` in direction `dir` joined by scaled weight
+/// `wt`: the capacity of the arc `p → q` and the change to `p`'s switch cost, given `q`'s
+/// state and whether the two have the same label (the cases of the module documentation).
+#[inline(always)]
+fn pair_terms(dir: usize, wt: Capacity, q_state: u8, same: bool) -> (Capacity, Capacity) {
+    match q_state {
+        FREE_VAR if same => (wt, 0),
+        // Different labels: the pair's first pixel (the one whose forward edge it is) gets
+        // the arc, the second pays −w on switching.
+        FREE_VAR if dir.is_multiple_of(2) => (wt, 0),
+        FREE_VAR => (0, -wt),
+        FIXED_ALPHA => (0, -wt),
+        FIXED_KEEP if same => (0, wt),
+        _ => (0, 0),
+    }
 }
 
 const FREE_VAR: u8 = 0;
@@ -135,118 +253,132 @@ impl Move {
     fn new(e: &PottsEnergy) -> Self {
         Move {
             graph: GridMaxFlow::new(e.width, e.height, e.connectivity),
-            state: vec![0; e.n_pixels()],
-            t: vec![0.0; e.n_pixels()],
+            state: vec![FIXED_KEEP; e.n_pixels()],
+            previous: vec![FIXED_KEEP; e.n_pixels()],
+            nodes: Vec::new(),
+            pixels: Vec::new(),
+            switched: Vec::new(),
+            moved: vec![false; e.n_pixels()],
         }
     }
 
     /// Fills the graph of the α-expansion from `labels`; false if no pixel is free to move.
-    fn build(
-        &mut self,
-        e: &PottsEnergy,
-        labels: &[u8],
-        wsum: &[f32],
-        alpha: u8,
-        scale: f32,
-    ) -> bool {
+    /// Rows are filled in parallel, each pixel gathering its own arcs and terminal capacity
+    /// from its neighbours (so the result does not depend on the number of threads).
+    fn build(&mut self, e: &PottsEnergy, c: &ScaledCosts, labels: &[u8], alpha: u8) -> bool {
         let (w, h, n) = (e.width, e.height, e.n_labels);
         let a = alpha as usize;
-        let mut any = false;
-        for p in 0..w * h {
-            let lp = labels[p] as usize;
-            if lp == a {
-                self.state[p] = FIXED_ALPHA;
-                self.t[p] = 0.0;
-            } else {
-                let switch = e.unary[p * n + a] - e.unary[p * n + lp];
-                if switch > wsum[p] {
-                    self.state[p] = FIXED_KEEP;
-                    self.t[p] = 0.0;
+        std::mem::swap(&mut self.state, &mut self.previous);
+        self.state
+            .par_chunks_mut(w)
+            .enumerate()
+            .for_each(|(y, row)| {
+                for (x, s) in row.iter_mut().enumerate() {
+                    let p = y * w + x;
+                    let lp = labels[p] as usize;
+                    *s = if lp == a {
+                        FIXED_ALPHA
+                    } else if c.unary[p * n + a] - c.unary[p * n + lp] > c.wsum[p] {
+                        // Switching costs more than all its pairs could save.
+                        FIXED_KEEP
+                    } else {
+                        FREE_VAR
+                    };
+                }
+            });
+        self.nodes.clear();
+        self.pixels.clear();
+        for (p, &s) in self.state.iter().enumerate() {
+            if s == FREE_VAR {
+                self.nodes.push(self.graph.node_of(p % w, p / w) as u32);
+                self.pixels.push(p as u32);
+            }
+        }
+        let (state, previous) = (&self.state, &self.previous);
+        let k = self.graph.directions();
+        // Pixel offsets of the directions, for the interior where no neighbour is missing.
+        let offsets: [isize; 8] =
+            std::array::from_fn(|d| DIRECTIONS[d].1 * w as isize + DIRECTIONS[d].0);
+        self.graph.fill_rows(|y, rcap, tcap| {
+            let interior_row = y > 0 && y + 1 < h;
+            for x in 0..w {
+                let p = y * w + x;
+                let arcs = &mut rcap[x * k..(x + 1) * k];
+                if state[p] != FREE_VAR {
+                    if previous[p] == FREE_VAR {
+                        arcs.fill(0);
+                        tcap[x] = 0;
+                    }
+                    continue;
+                }
+                let lp = labels[p];
+                let mut t = c.unary[p * n + a] - c.unary[p * n + lp as usize];
+                if interior_row && x > 0 && x + 1 < w {
+                    for (dir, arc) in arcs.iter_mut().enumerate() {
+                        let q = (p as isize + offsets[dir]) as usize;
+                        let wt = c.weights[slot_index(p, q, dir)];
+                        let (cap, dt) = pair_terms(dir, wt, state[q], labels[q] == lp);
+                        *arc = cap;
+                        t += dt;
+                    }
                 } else {
-                    self.state[p] = FREE_VAR;
-                    self.t[p] = switch;
-                    any = true;
-                }
-            }
-        }
-        if !any {
-            return false;
-        }
-        self.graph.reset();
-        let q_of = |x: usize, y: usize, d: usize| {
-            let (dx, dy) = FORWARD[d];
-            ((y as isize + dy) as usize) * w + (x as isize + dx) as usize
-        };
-        // FORWARD[d] is DIRECTIONS[GRID_DIR[d]] in the max-flow's numbering.
-        const GRID_DIR: [usize; 4] = [0, 2, 4, 6];
-        let to_cap = |v: f32| (v * scale).round() as Capacity;
-        for y in 0..h {
-            for x in 0..w {
-                let p = y * w + x;
-                for (d, &grid_dir) in GRID_DIR
-                    .iter()
-                    .enumerate()
-                    .take(e.connectivity.forward_count())
-                {
-                    let wt = e.weights[p * 4 + d];
-                    if wt == 0.0 {
-                        continue;
-                    }
-                    let q = q_of(x, y, d);
-                    let (sp, sq) = (self.state[p], self.state[q]);
-                    let same = labels[p] == labels[q];
-                    match (sp, sq) {
-                        (FREE_VAR, FREE_VAR) => {
-                            let node = self.graph.node_of(x, y);
-                            if same {
-                                self.graph
-                                    .add_edge_node(node, grid_dir, to_cap(wt), to_cap(wt));
-                            } else {
-                                self.t[q] -= wt;
-                                self.graph.add_edge_node(node, grid_dir, to_cap(wt), 0);
-                            }
+                    for (dir, arc) in arcs.iter_mut().enumerate() {
+                        *arc = 0;
+                        if let Some((q, dir)) = neighbour(w, h, x, y, dir) {
+                            let wt = c.weights[slot_index(p, q, dir)];
+                            let (cap, dt) = pair_terms(dir, wt, state[q], labels[q] == lp);
+                            *arc = cap;
+                            t += dt;
                         }
-                        (FREE_VAR, FIXED_ALPHA) => self.t[p] -= wt,
-                        (FIXED_ALPHA, FREE_VAR) => self.t[q] -= wt,
-                        (FREE_VAR, FIXED_KEEP) if same => self.t[p] += wt,
-                        (FIXED_KEEP, FREE_VAR) if same => self.t[q] += wt,
-                        _ => {}
                     }
                 }
+                tcap[x] = t;
             }
-        }
-        for y in 0..h {
-            for x in 0..w {
-                let p = y * w + x;
-                if self.state[p] == FREE_VAR {
-                    let c = to_cap(self.t[p]);
-                    let node = self.graph.node_of(x, y);
-                    if c > 0 {
-                        self.graph.add_terminal_node(node, c, 0);
-                    } else if c < 0 {
-                        self.graph.add_terminal_node(node, 0, -c);
-                    }
-                }
-            }
-        }
-        true
+        });
+        !self.nodes.is_empty()
     }
 
-    /// Writes α into `labels` where the cut says "switch"; false if nothing switched.
-    fn apply(&self, e: &PottsEnergy, alpha: u8, labels: &mut [u8]) -> bool {
-        let mut changed = false;
-        for y in 0..e.height {
-            for x in 0..e.width {
-                let p = y * e.width + x;
-                if self.state[p] == FREE_VAR
-                    && self.graph.segment_node(self.graph.node_of(x, y)) == Segment::Sink
-                {
-                    labels[p] = alpha;
-                    changed = true;
-                }
+    /// After the cut: lists the pixels it switches to α and returns the exact energy change
+    /// (f64, on the original costs) of switching them; 0 if none switch.
+    fn switched_delta(&mut self, e: &PottsEnergy, labels: &[u8], alpha: u8) -> f64 {
+        let (w, h, n) = (e.width, e.height, e.n_labels);
+        self.switched.clear();
+        for (&node, &p) in self.nodes.iter().zip(&self.pixels) {
+            if self.graph.segment_node(node as usize) == Segment::Sink {
+                self.switched.push(p);
+                self.moved[p as usize] = true;
             }
         }
-        changed
+        let k = self.graph.directions();
+        let mut delta = 0.0f64;
+        for &p in &self.switched {
+            let p = p as usize;
+            let lp = labels[p];
+            delta += (e.unary[p * n + alpha as usize] - e.unary[p * n + lp as usize]) as f64;
+            let (x, y) = (p % w, p / w);
+            for dir in 0..k {
+                let Some((q, dir)) = neighbour(w, h, x, y, dir) else {
+                    continue;
+                };
+                // A pair with both pixels switched is counted once, from the lower one.
+                if self.moved[q] && q < p {
+                    continue;
+                }
+                let wt = e.weights[slot_index(p, q, dir)];
+                if wt == 0.0 {
+                    continue;
+                }
+                let lq = labels[q];
+                let new_lq = if self.moved[q] { alpha } else { lq };
+                let before = f64::from(u8::from(lp != lq));
+                let after = f64::from(u8::from(alpha != new_lq));
+                delta += wt as f64 * (after - before);
+            }
+        }
+        for &p in &self.switched {
+            self.moved[p as usize] = false;
+        }
+        delta
     }
 }
 

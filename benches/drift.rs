@@ -83,9 +83,9 @@ fn score(model: &Segmenter, img: &RasterImage) -> f64 {
     drift_score(&model.profile.as_ref().expect("new model").z_scores(&m))
 }
 
-fn show(name: &str, mut v: Vec<f64>) {
+fn show(name: &str, mut v: Vec<f64>, limit: f64) {
     v.sort_by(f64::total_cmp);
-    let flagged = v.iter().filter(|&&s| s > DRIFT_Z).count();
+    let flagged = v.iter().filter(|&&s| s > limit).count();
     println!(
         "| {name} | {:.2} | {:.2} | {:.2} | {flagged} of {} |",
         v[0],
@@ -121,16 +121,31 @@ fn main() {
         ("blurred", Box::new(blur)),
         ("2x coarser pixels", Box::new(halve)),
     ];
-    println!("| images | drift score min | median | max | flagged (> {DRIFT_Z}) |");
+    let limit = model.profile.as_ref().expect("new model").limit as f64;
+    println!("the model's limit: {limit:.2} (at least {DRIFT_Z})");
+    let own: Vec<RasterImage> = std::fs::read_dir(train.join("images"))
+        .unwrap()
+        .map(|e| read_image(&e.unwrap().path()).unwrap())
+        .collect();
+    println!("| images | drift score min | median | max | flagged (> {limit:.2}) |");
     println!("|---|---:|---:|---:|---:|");
     for (name, f) in &changes {
-        show(name, tests.iter().map(|i| score(&model, &f(i))).collect());
+        show(
+            name,
+            tests.iter().map(|i| score(&model, &f(i))).collect(),
+            limit,
+        );
     }
+    show(
+        "training scenes themselves",
+        own.iter().map(|i| score(&model, i)).collect(),
+        limit,
+    );
     let mri = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/data/mni152-tissue/images");
     if let Ok(dir) = std::fs::read_dir(&mri) {
         let zs = dir
             .map(|e| score(&model, &read_image(&e.unwrap().path()).unwrap()))
             .collect();
-        show("MRI slices (another domain)", zs);
+        show("MRI slices (another domain)", zs, limit);
     }
 }

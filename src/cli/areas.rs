@@ -1,6 +1,6 @@
 //! `grove areas`: error-adjusted area estimates from apply's label maps and a reference.
 
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 use clap::Args;
 
@@ -9,16 +9,31 @@ use crate::dataset::{list_images, read_labels_for, stem_of, ClassTable};
 use crate::error::{GroveError, Result};
 use crate::eval::area_estimate::{bootstrap_area_ci, estimate, ErrorMatrix};
 use crate::eval::areas::PixelSize;
-use crate::imageio::write_atomic;
+use crate::imageio::{output_path, write_atomic};
 
 #[derive(Args, Debug)]
 pub struct AreasArgs {
     /// Output folder of `grove apply` (labels/ and classes.toml).
     pub maps: PathBuf,
     /// Reference labels for some of the same image stems (DATA/labels/STEM.png and
-    /// DATA/classes.toml): fully labelled images or a sparse sample of pixels.
-    #[arg(long, value_name = "DATA")]
-    pub reference: PathBuf,
+    /// DATA/classes.toml): fully labelled images or a sparse sample of pixels, such as a
+    /// filled-in --plan.
+    #[arg(long, value_name = "DATA", required_unless_present = "plan")]
+    pub reference: Option<PathBuf>,
+    /// Instead of estimating: draw a stratified random sample of N pixels over the maps
+    /// (each mapped class at least min(50, N / 2K), the rest by mapped area) and write, into
+    /// --out, per map a label PNG with the sampled pixels white on transparent (paint each
+    /// in its true class colour; unpainted ones are ignored), a picture marking them,
+    /// points.csv and classes.toml; the filled-in folder is a valid --reference.
+    #[arg(long, value_name = "N", conflicts_with = "reference", requires = "out",
+          value_parser = clap::value_parser!(u32).range(1..=10_000_000))]
+    pub plan: Option<u32>,
+    /// Folder for the --plan files.
+    #[arg(long, value_name = "PLAN_DIR")]
+    pub out: Option<PathBuf>,
+    /// Seed of the --plan sample.
+    #[arg(long, default_value_t = 0)]
+    pub seed: u64,
     /// Side of one pixel with its unit (e.g. 0.05m): areas in the unit squared.
     #[arg(long, value_name = "SIZE")]
     pub pixel_size: Option<PixelSize>,
@@ -42,7 +57,12 @@ pub fn run(args: AreasArgs) -> Result<()> {
     }
     let opts = args.labels.options();
     let classes = ClassTable::load(&table_path, opts.unlabelled_value)?;
-    let ref_table_path = args.reference.join("classes.toml");
+    let reference = match (&args.reference, args.plan, &args.out) {
+        (Some(r), _, _) => r.clone(),
+        (None, Some(n), Some(out)) => return plan(&args, &classes, n as usize, out),
+        _ => unreachable!("clap requires --reference or --plan with --out"),
+    };
+    let ref_table_path = reference.join("classes.toml");
     let ref_classes = ClassTable::load(&ref_table_path, opts.unlabelled_value)?;
     if ref_classes != classes {
         return Err(GroveError::input(
@@ -69,7 +89,7 @@ pub fn run(args: AreasArgs) -> Result<()> {
     let mut map_pixels = vec![0u64; k];
     let mut per_image = Vec::new();
     let mut whole_images = 0;
-    let ref_dir = args.reference.join("labels");
+    let ref_dir = reference.join("labels");
     for path in &maps {
         let map = crate::dataset::labels::read_labels(path, &classes, &opts)?;
         for (c, n) in map.class_counts(k).into_iter().enumerate() {
@@ -123,6 +143,102 @@ pub fn run(args: AreasArgs) -> Result<()> {
         write_atomic(path, json.as_bytes())?;
         println!("estimates written to {}", path.display());
     }
+    Ok(())
+}
+
+/// `--plan`: the sample and its files.
+fn plan(args: &AreasArgs, classes: &ClassTable, n: usize, out: &Path) -> Result<()> {
+    use crate::eval::area_plan::{allocate, draw};
+    let opts = args.labels.options();
+    let paths = list_images(&args.maps.join("labels"))?;
+    if paths.is_empty() {
+        return Err(GroveError::input(args.maps.join("labels"), "no label maps"));
+    }
+    let guard =
+        crate::output_guard::OutputGuard::new(paths.iter().map(PathBuf::as_path), args.force);
+    guard.check_dir(out)?;
+    let k = classes.len();
+    let mut maps = Vec::with_capacity(paths.len());
+    let mut pixels = vec![0u64; k];
+    for path in &paths {
+        let map = crate::dataset::labels::read_labels(path, classes, &opts)?;
+        for (c, p) in map.class_counts(k).into_iter().enumerate() {
+            pixels[c] += p;
+        }
+        maps.push(map);
+    }
+    let per_class = allocate(n, &pixels);
+    let views: Vec<&[u8]> = maps.iter().map(|m| m.indices.as_slice()).collect();
+    let widths: Vec<usize> = maps.iter().map(|m| m.width).collect();
+    let points = draw(&views, &widths, &per_class, args.seed);
+    let stems: Vec<String> = paths.iter().map(|p| stem_of(p)).collect();
+    let files: Vec<PathBuf> = stems
+        .iter()
+        .flat_map(|s| {
+            [
+                output_path(&out.join("labels"), s, "png"),
+                output_path(&out.join("pictures"), s, "png"),
+            ]
+        })
+        .chain([out.join("points.csv"), out.join("classes.toml")])
+        .collect();
+    for f in &files {
+        guard.check_file(f)?;
+    }
+    let mut csv = String::from("image,x,y,map_class\n");
+    for p in &points {
+        csv += &format!(
+            "{},{},{},{}\n",
+            stems[p.map],
+            p.x,
+            p.y,
+            classes.classes()[p.class].name
+        );
+    }
+    for (i, map) in maps.iter().enumerate() {
+        let mine: Vec<_> = points.iter().filter(|p| p.map == i).collect();
+        if mine.is_empty() {
+            continue;
+        }
+        let (w, h) = (map.width, map.height);
+        let mut rgba = vec![0u8; w * h * 4];
+        for p in &mine {
+            rgba[(p.y * w + p.x) * 4..][..4].copy_from_slice(&[255; 4]);
+        }
+        write_atomic(
+            &output_path(&out.join("labels"), &stems[i], "png"),
+            &crate::imageio::encode_png(w, h, png::ColorType::Rgba, None, &rgba),
+        )?;
+        let overlay = args.maps.join("overlays").join(format!("{}.png", stems[i]));
+        let picture = crate::eval::area_plan::mark_points(&overlay, map, classes, &mine);
+        crate::imageio::write_rgb_png(
+            &output_path(&out.join("pictures"), &stems[i], "png"),
+            w,
+            h,
+            &picture,
+        )?;
+    }
+    write_atomic(&out.join("points.csv"), csv.as_bytes())?;
+    write_atomic(&out.join("classes.toml"), classes.to_toml().as_bytes())?;
+    println!(
+        "{} sample pixels over {} maps ({}) in {}",
+        points.len(),
+        maps.len(),
+        classes
+            .names()
+            .iter()
+            .zip(&per_class)
+            .map(|(c, n)| format!("{c} {n}"))
+            .collect::<Vec<_>>()
+            .join(", "),
+        out.display()
+    );
+    println!(
+        "next: in each {}/labels/NAME.png paint every white pixel in the colour of its true class (pictures/ shows where they are; points.csv lists them), then run grove areas {} --reference {}",
+        out.display(),
+        args.maps.display(),
+        out.display()
+    );
     Ok(())
 }
 

@@ -153,6 +153,11 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
         deliver(e, &img, &model.predict(&img, DEFAULT_TILE, &smoothing))?;
     }
     areas.borrow().write(&pred_dir)?;
+    // As apply does: the folder is then readable on its own (`grove areas` needs the names).
+    write_atomic(
+        &pred_dir.join("classes.toml"),
+        model.classes.to_toml().as_bytes(),
+    )?;
     println!("outputs:");
     let show = |what: &str, p: &Path| println!("  {what:<22} {}", p.display());
     show("model", &model_path);

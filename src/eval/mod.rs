@@ -2,6 +2,7 @@
 //! and what follows from the maps: area figures.
 
 pub mod area_estimate;
+pub mod area_plan;
 pub mod areas;
 pub mod boundary;
 pub mod confusion;

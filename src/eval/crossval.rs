@@ -71,6 +71,8 @@ pub struct CrossValidation {
     pub seed: u64,
     /// Fewer images than requested folds: each fold holds out one image.
     pub leave_one_image_out: bool,
+    /// The smoothing of the scored maps.
+    pub smoothing: SmoothSettings,
 }
 
 impl CrossValidation {
@@ -155,6 +157,7 @@ where
         folds: results,
         pooled,
         seed: config.seed,
+        smoothing: smoothing.clone(),
     })
 }
 

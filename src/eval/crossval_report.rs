@@ -141,7 +141,7 @@ impl CrossvalReport {
             class_iou,
         };
         CrossvalReport {
-            pooled: MetricsReport::new(&cv.pooled, classes),
+            pooled: MetricsReport::new(&cv.pooled, classes).smoothed_with(&cv.smoothing),
             n_folds: folds.len(),
             seed: cv.seed,
             leave_one_image_out: cv.leave_one_image_out,

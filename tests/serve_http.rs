@@ -486,6 +486,30 @@ fn training_runs_in_the_background_and_layers_follow() {
         .map(|a| a["pixels"].as_u64().unwrap())
         .sum();
     assert_eq!(total, n as u64);
+    // The suggested regions (the call `grove suggest` makes) come with the layers, as boxes
+    // inside the image, and only to a client that has the token.
+    for r in l["regions"].as_array().expect("regions listed") {
+        let (x, w) = (r["x"].as_u64().unwrap(), r["width"].as_u64().unwrap());
+        let (y, h) = (r["y"].as_u64().unwrap(), r["height"].as_u64().unwrap());
+        assert!(w > 0 && h > 0 && x + w <= 96 && y + h <= 96, "{r}");
+        assert!(r["pixels"].as_u64().unwrap() <= w * h, "{r}");
+    }
+    assert_eq!(
+        http(s.port, "GET", "/api/layers/farm_000", &[], b"").status,
+        401
+    );
+    let wrong = "0".repeat(64);
+    assert_eq!(
+        http(
+            s.port,
+            "GET",
+            "/api/layers/farm_000",
+            &[("X-Grove-Token", &wrong)],
+            b""
+        )
+        .status,
+        403
+    );
     let png = s.get("/api/layers/farm_000/prediction.png");
     assert_eq!(png.status, 200);
     assert_eq!(&png.body[1..4], b"PNG");

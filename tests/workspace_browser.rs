@@ -173,6 +173,9 @@ fn workspace_in_headless_chromium() {
     assert_eq!(ds.classes.len(), 6, "five classes and the hostile one");
     let painted = result["painted"].as_object().unwrap();
     assert!(painted.len() >= 3);
+    // After training the page offered the regions `grove suggest` ranks highest and the
+    // button moved the view to them (checked in the script).
+    assert!(result["regions"].as_u64().unwrap() >= 1, "{result}");
     for (name, dump) in painted {
         let expected = std::fs::read(out.join(dump.as_str().unwrap())).unwrap();
         let entry = ds.entries.iter().find(|e| &e.stem == name).unwrap();

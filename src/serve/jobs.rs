@@ -2,7 +2,9 @@
 //! thread, its stages followed through `Progress::observed`, so the page keeps working and
 //! polls for progress), and the layers computed from the current model for one image
 //! (prediction, uncertainty and the prediction smoothed with the model's default, from
-//! `Segmenter::predictions`), cached per model generation. With enough labelled images,
+//! `Segmenter::predictions`), cached per model generation, with the regions `grove suggest`
+//! would offer for it (`eval::suggest::suggest_image`, default settings, labelled pixels
+//! excluded). With enough labelled images,
 //! training also cross-validates by image (`eval::crossval`, the call `grove crossval`
 //! makes), and the page shows that score instead of the optimistic out-of-bag one.
 
@@ -18,11 +20,13 @@ use serde_json::{json, Value};
 use super::dataset_api::find_image;
 use super::http::Reply;
 use super::Workspace;
-use crate::dataset::{Dataset, UNLABELLED};
+use crate::dataset::save::label_path;
+use crate::dataset::{read_labels_for, Dataset, UNLABELLED};
 use crate::error::Result;
 use crate::eval::areas::{count_classes, AreaTable};
 use crate::eval::crossval::cross_validate;
 use crate::eval::crossval_report::CrossvalReport;
+use crate::eval::suggest::{suggest_image, Region, SuggestConfig};
 use crate::imageio::{encode_png, read_image};
 use crate::prediction::Prediction;
 use crate::progress::Progress;
@@ -56,6 +60,8 @@ struct ImageLayers {
     uncertainty: Vec<f32>,
     /// Class index per pixel after pairwise smoothing (the model's default settings).
     smoothed: Vec<u8>,
+    /// The regions `grove suggest` would offer here, best first.
+    regions: Vec<Region>,
 }
 
 pub struct Jobs {
@@ -337,12 +343,37 @@ fn layers_of(
         .into_iter()
         .map(|c| ((1.0 - c) / (1.0 - floor)).clamp(0.0, 1.0))
         .collect();
+    // Pixels the user has labelled are never suggested, as in `grove suggest --labels`; an
+    // unreadable label file only means none are excluded (the label API reports it).
+    let lpath = label_path(&ws.root, name);
+    let known: Option<Vec<bool>> = lpath
+        .is_file()
+        .then(|| {
+            read_labels_for(
+                &lpath,
+                &model.classes,
+                &ws.label_options,
+                (probs.width, probs.height),
+            )
+            .ok()
+        })
+        .flatten()
+        .map(|m| m.indices.iter().map(|&c| c != UNLABELLED).collect());
+    let regions = suggest_image(
+        name,
+        &probs,
+        known.as_deref(),
+        &model.classes.names(),
+        &SuggestConfig::default(),
+    )
+    .regions;
     let layers = Arc::new(ImageLayers {
         width: probs.width,
         height: probs.height,
         prediction: plain.labels,
         uncertainty,
         smoothed: smoothed.labels,
+        regions,
     });
     let mut cache = ws.jobs.layers.lock().expect("layer lock poisoned");
     cache.retain(|(n, _, _)| n != name);
@@ -380,7 +411,7 @@ pub fn layers(ws: &Workspace, name: &str) -> Reply {
             "height": l.height,
             "layers": ["prediction", "smoothed", "uncertainty"],
             "areas": areas,
-            "regions": [],
+            "regions": l.regions,
         }),
     )
 }

@@ -41,7 +41,7 @@ async function shot(name) {
   await page.waitForTimeout(150);
   const path = join(out, `${name}.png`);
   await page.screenshot({ path });
-  if (docs && /^workspace-[125]/.test(name)) copyFileSync(path, join(docs, `${name}.png`));
+  if (docs && /^workspace-[1235]/.test(name)) copyFileSync(path, join(docs, `${name}.png`));
 }
 const saved = () => page.waitForFunction(() => document.getElementById('save-state').dataset.state === 'saved' && !S.img.dirty);
 
@@ -162,13 +162,25 @@ check(await page.locator('#scores td').count() > 0, 'scores shown');
 check((await page.locator('#scores .caveat').count()) > 0 || (await page.locator('#scores').textContent()).includes('by image'), 'score caveat or crossval shown');
 check(await page.locator('#areas tr').count() >= 2, 'areas shown');
 await shot('workspace-2-trained');
+// The regions `grove suggest` ranks highest: a layer of boxes, and the button jumps to them
+// best first, each time moving the view.
+await page.waitForFunction(() => S.layers.regions.length > 0, null, { timeout: 20000 });
 const regions = await page.evaluate(() => S.layers.regions.length);
-if (regions > 0) {
+check(await page.locator('#layer-regions').isChecked(), 'suggested-region layer shown');
+check(await page.locator('#next-region').isEnabled(), 'next-region button enabled');
+const viewOf = () => page.evaluate(() => ({ ...S.view, cursor: S.regionCursor }));
+const before = await viewOf();
+await page.click('#next-region');
+const first = await viewOf();
+check(first.cursor === 0 && (first.ox !== before.ox || first.oy !== before.oy || first.scale !== before.scale), `view moved to region 1 (${JSON.stringify(before)} → ${JSON.stringify(first)})`);
+check(/suggested region 1 of/.test(await page.locator('#message').textContent()), 'the message names the region');
+await shot('workspace-3-suggested');
+if (regions > 1) {
   await page.click('#next-region');
-  await shot('workspace-3-suggested');
-} else {
-  log('no suggested regions offered by the server');
+  const second = await viewOf();
+  check(second.cursor === 1 && (second.ox !== first.ox || second.oy !== first.oy || second.scale !== first.scale), 'view moved to region 2');
 }
+log(`${regions} suggested regions; the button moved the view`);
 
 // 5. Correct: paint this image's planned strokes over the prediction, retrain.
 await page.keyboard.press('f');

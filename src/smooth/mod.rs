@@ -11,6 +11,7 @@ pub mod energy;
 pub mod expansion;
 pub mod maxflow;
 pub mod meanfield;
+pub mod tiles;
 
 use serde::{Deserialize, Serialize};
 

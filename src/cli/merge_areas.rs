@@ -52,10 +52,11 @@ pub fn run(args: MergeAreasArgs) -> Result<()> {
     };
     write_atomic(out, text.as_bytes())?;
     eprintln!(
-        "merged {} folder{} ({} images) into {}",
+        "merged {} folder{} ({} image{}) into {}",
         args.inputs.len(),
         if args.inputs.len() == 1 { "" } else { "s" },
         table.images().count(),
+        if table.images().count() == 1 { "" } else { "s" },
         out.display()
     );
     Ok(())

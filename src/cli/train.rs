@@ -154,7 +154,8 @@ pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
         None if args.options.smooth_strength.is_some() || args.options.smooth == Some(SmoothMethod::None) => {
             "as given)".to_string()
         }
-        None => "the built-in default: with one training image there is none to hold out for choosing the strength)".to_string(),
+        None if entries.len() < 2 => "the built-in default: with one training image there is none to hold out for choosing the strength)".to_string(),
+        None => "the built-in default: the strength search did not run, see the warning above)".to_string(),
     };
     println!(
         "smoothing default: {} ({explained}",

@@ -2,19 +2,9 @@
 //! classes, is a valid `--reference` (Olofsson et al. 2014, RSE 148:42–57; the estimator
 //! itself is checked against lulc-validation in tests/area_estimate.rs).
 
-use std::process::Command;
-
-fn grove(args: &[&str]) -> (i32, String, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_grove"))
-        .args(args)
-        .output()
-        .unwrap();
-    (
-        out.status.code().unwrap_or(-1),
-        String::from_utf8_lossy(&out.stdout).into_owned(),
-        String::from_utf8_lossy(&out.stderr).into_owned(),
-    )
-}
+#[path = "support/run.rs"]
+mod run;
+use run::grove;
 
 #[test]
 fn plan_then_fill_in_then_estimate() {

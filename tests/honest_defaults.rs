@@ -2,22 +2,12 @@
 //! dominate; the out-of-bag figure comes with its caveat.
 
 use std::path::Path;
-use std::process::Command;
 
 const TABLE: &str = "[[class]]\nid = 0\nname = \"left\"\ncolor = \"#8a6a4a\"\n\n[[class]]\nid = 1\nname = \"right\"\ncolor = \"#2f9e44\"\n";
 
-/// (exit code, stdout, stderr)
-fn grove(args: &[&str]) -> (i32, String, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_grove"))
-        .args(args)
-        .output()
-        .unwrap();
-    (
-        out.status.code().unwrap_or(-1),
-        String::from_utf8_lossy(&out.stdout).into_owned(),
-        String::from_utf8_lossy(&out.stderr).into_owned(),
-    )
-}
+#[path = "support/run.rs"]
+mod run;
+use run::grove;
 
 /// Images of the same noise everywhere, labelled by which half a pixel is in: only position
 /// can tell the classes apart, so with `--position` it must top the ranking.

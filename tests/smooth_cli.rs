@@ -8,23 +8,14 @@
 //! with the scores that grove gave it (see its README).
 
 use std::path::{Path, PathBuf};
-use std::process::Command;
 
 fn mni() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/data/mni152-tissue")
 }
 
-fn grove(args: &[&str]) -> (i32, String, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_grove"))
-        .args(args)
-        .output()
-        .unwrap();
-    (
-        out.status.code().unwrap_or(-1),
-        String::from_utf8_lossy(&out.stdout).into_owned(),
-        String::from_utf8_lossy(&out.stderr).into_owned(),
-    )
-}
+#[path = "support/run.rs"]
+mod run;
+use run::grove;
 
 fn ok(args: &[&str]) -> String {
     let (code, out, err) = grove(args);

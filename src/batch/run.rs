@@ -252,7 +252,7 @@ fn unlike_training(
     *count += 1;
     match *count {
         n if n < MAX_UNLIKE_WARNINGS => Some(format!(
-            "{} is unlike the training images: {}; its map may be poor",
+            "{} is unlike the training images: {}; its map may be poor (label a few such images and add them to training, or check the map with grove eval)",
             path.display(),
             why.join("; ")
         )),

@@ -83,9 +83,8 @@ pub fn from_bytes(bytes: &[u8]) -> std::result::Result<Segmenter, String> {
         .filter(|e| e.checked_add(8).is_some_and(|t| t <= bytes.len()))
     else {
         return Err(format!(
-            "model file is truncated ({} bytes, header announces {})",
-            bytes.len(),
-            HEADER as u64 + len as u64 + 8
+            "model file is truncated ({} bytes, header announces a {len}-byte payload)",
+            bytes.len()
         ));
     };
     if end + 8 != bytes.len() {

@@ -217,6 +217,13 @@ fn damaged_model_files_are_refused_clearly() {
     assert!(grove::model::from_bytes(b"hello")
         .unwrap_err()
         .contains("not a grove model"));
+    // Found by the model_load fuzz target (fuzz/corpus/model_load/huge-length): a header that
+    // announces a payload near u64::MAX once overflowed while the error message was formatted.
+    let mut huge = bytes[..20].to_vec();
+    huge[12..20].copy_from_slice(&u64::MAX.to_le_bytes());
+    huge.extend([0u8; 16]);
+    let err = grove::model::from_bytes(&huge).unwrap_err();
+    assert!(err.contains("truncated"), "{err}");
 }
 
 #[test]

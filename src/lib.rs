@@ -28,6 +28,7 @@ pub mod segmenter;
 pub mod serve;
 pub mod smooth;
 pub mod tiling;
+pub mod train;
 
 pub use error::{GroveError, Result};
 pub use plane::Plane;

@@ -518,4 +518,65 @@ fn training_runs_in_the_background_and_layers_follow() {
         .as_str()
         .unwrap()
         .contains("optimistic"));
+    // The page states the smoothing choice in the words of `grove train`.
+    assert!(
+        status["smoothing"]
+            .as_str()
+            .unwrap()
+            .starts_with("expansion, strength "),
+        "{status}"
+    );
+
+    // After the model is saved the images are ranked in the background; the ranks are those
+    // of `grove suggest MODEL DATA/images` (the command as the reference: same model, same
+    // label files, whose pixels are not suggested).
+    let t0 = Instant::now();
+    let st = loop {
+        let st = s.get("/api/state").json();
+        if st["train"]["background"].is_null() {
+            break st;
+        }
+        assert!(
+            t0.elapsed() < Duration::from_secs(60),
+            "ranking did not finish"
+        );
+        std::thread::sleep(Duration::from_millis(100));
+    };
+    let out = t.path().join("suggest");
+    let json = t.path().join("suggest.json");
+    let cli = Command::new(env!("CARGO_BIN_EXE_grove"))
+        .args(["suggest", data.join("model.grove").to_str().unwrap()])
+        .arg(data.join("images"))
+        .args(["--top", "100", "--out", out.to_str().unwrap(), "--json"])
+        .arg(&json)
+        .output()
+        .unwrap();
+    assert!(
+        cli.status.success(),
+        "{}",
+        String::from_utf8_lossy(&cli.stderr)
+    );
+    let cli: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&json).unwrap()).unwrap();
+    let by_cli: Vec<&str> = cli["images"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|i| i["image"].as_str().unwrap())
+        .collect();
+    let mut by_page: Vec<(u64, &str)> = st["images"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|i| {
+            (
+                i["rank"].as_u64().expect("every image ranked"),
+                i["name"].as_str().unwrap(),
+            )
+        })
+        .collect();
+    by_page.sort();
+    assert_eq!(st["ranked"], 2);
+    assert_eq!(by_page.iter().map(|p| p.1).collect::<Vec<_>>(), by_cli);
+    assert_eq!(by_page.iter().map(|p| p.0).collect::<Vec<_>>(), vec![1, 2]);
 }

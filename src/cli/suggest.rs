@@ -1,15 +1,16 @@
 //! `grove suggest`.
 
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 
 use clap::Args;
 
 use crate::batch::inputs::list_inputs;
 use crate::cli::LabelArgs;
-use crate::dataset::{read_labels_for, stem_of, UNLABELLED};
+use crate::dataset::stem_of;
 use crate::error::{GroveError, Result};
-use crate::eval::suggest::{draw_regions, rank, suggest_image, SuggestConfig, SuggestReport};
-use crate::imageio::{output_path, read_image, write_atomic, write_rgb_png};
+use crate::eval::suggest::{draw_regions, rank, SuggestConfig, SuggestReport};
+use crate::eval::suggest_files::{label_file_of, suggest_file};
+use crate::imageio::{output_path, write_atomic, write_rgb_png};
 use crate::outputs::OutputOptions;
 use crate::progress::Progress;
 
@@ -49,29 +50,12 @@ pub struct SuggestArgs {
     pub force: bool,
 }
 
-/// The label file of `image`: `--labels DIR/STEM.png`, or `../labels/STEM.png` beside a
-/// dataset's images/ folder.
-fn label_file(image: &Path, labels: Option<&Path>) -> Option<PathBuf> {
-    let stem = stem_of(image);
-    let candidate = match labels {
-        Some(dir) => dir.join(format!("{stem}.png")),
-        None => {
-            let dir = image.parent()?;
-            if dir.file_name()? != "images" {
-                return None;
-            }
-            dir.parent()?.join("labels").join(format!("{stem}.png"))
-        }
-    };
-    candidate.is_file().then_some(candidate)
-}
-
 /// Every output place, checked before any image is read (see `output_guard`): a picture may
 /// be written for any of the images.
 fn check_outputs(args: &SuggestArgs, images: &[PathBuf]) -> Result<()> {
     let label_files: Vec<PathBuf> = images
         .iter()
-        .filter_map(|i| label_file(i, args.labels.as_deref()))
+        .filter_map(|i| label_file_of(i, args.labels.as_deref()))
         .collect();
     let inputs = images
         .iter()
@@ -108,29 +92,14 @@ pub fn run(args: SuggestArgs, progress: Progress) -> Result<()> {
     let model = crate::model::load(&args.model)?;
     let images = list_inputs(&args.inputs)?;
     check_outputs(&args, &images)?;
-    let names = model.classes.names();
     let opts = args.label_args.options();
     let bar = progress.stage("suggesting", images.len() as u64);
     let mut found = Vec::with_capacity(images.len());
     let mut labelled_images = 0;
     for path in &images {
-        let img = read_image(path)?;
-        let known = match label_file(path, args.labels.as_deref()) {
-            Some(lf) => {
-                labelled_images += 1;
-                let map = read_labels_for(&lf, &model.classes, &opts, (img.width, img.height))?;
-                Some(
-                    map.indices
-                        .iter()
-                        .map(|&c| c != UNLABELLED)
-                        .collect::<Vec<_>>(),
-                )
-            }
-            None => None,
-        };
-        let probs = model.predict_proba(&img);
-        let s = suggest_image(&stem_of(path), &probs, known.as_deref(), &names, &cfg);
-        found.push((s, path.clone(), img, probs));
+        let f = suggest_file(&model, path, args.labels.as_deref(), &opts, &cfg)?;
+        labelled_images += f.labelled as usize;
+        found.push((f.suggestion, path.clone(), f.image, f.probabilities));
         bar.inc(1);
     }
     bar.finish_and_clear();

@@ -7,11 +7,10 @@ use clap::Args;
 
 use crate::cli::{check_strength, open_dataset, LabelArgs};
 use crate::error::Result;
-use crate::eval::smoothing_strength::{choose_strength, StrengthChoice, SEARCH_TREES};
-use crate::prediction::SmoothDefault;
 use crate::progress::Progress;
 use crate::segmenter::TrainConfig;
 use crate::smooth::SmoothMethod;
+use crate::train::SmoothingRequest;
 
 /// Warn when a position feature ranks among this many most important features. On the
 /// fixed-camera street frames of issue 6 they were the top two, and the held-out frame
@@ -116,24 +115,21 @@ pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
     // Before any work: an hour of training must not end in "cannot write".
     crate::output_guard::OutputGuard::new(ds.files(), args.force).check_file(&args.model)?;
     let entries = ds.labelled();
-    // The real model first: its checks of the dataset give the clearest messages, and the
-    // strength search below trains on a subset that may fail for reasons of its own.
-    let mut model = config.fit(&ds, &entries, progress)?;
-    let method = args.options.smooth.unwrap_or(SmoothMethod::Expansion);
-    let (smoothing, choice) = match (args.options.smooth, args.options.smooth_strength) {
-        (Some(SmoothMethod::None), _) => (SmoothDefault::NONE, None),
-        (_, Some(strength)) => (SmoothDefault { method, strength }, None),
-        _ => match choose_strength(&config, &ds, &entries, method, progress) {
-            Ok(Some(c)) => (c.default(), Some(c)),
-            Ok(None) => (SmoothDefault::library(), None),
-            Err(e) => {
-                eprintln!("warning: could not choose a smoothing strength on held-out training images ({e}); using the default");
-                (SmoothDefault::library(), None)
-            }
+    let trained = crate::train::train(
+        &config,
+        &ds,
+        &entries,
+        SmoothingRequest {
+            method: args.options.smooth,
+            strength: args.options.smooth_strength,
         },
-    };
-    model.smoothing = smoothing;
-    crate::model::save(&model, &args.model)?;
+        progress,
+    )?;
+    if let Some(e) = &trained.search_failed {
+        eprintln!("warning: could not choose a smoothing strength on held-out training images ({e}); using the default");
+    }
+    let model = &trained.model;
+    crate::model::save(model, &args.model)?;
     let p = &model.provenance;
     let seconds = t0.elapsed().as_secs_f64();
     let unlabelled = ds.entries.len() - entries.len();
@@ -149,18 +145,7 @@ pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
         p.samples_per_class.iter().sum::<u64>(),
         model.features.n_features(),
     );
-    let explained = match &choice {
-        Some(c) => explain_choice(c, seconds),
-        None if args.options.smooth_strength.is_some() || args.options.smooth == Some(SmoothMethod::None) => {
-            "as given)".to_string()
-        }
-        None if entries.len() < 2 => "the built-in default: with one training image there is none to hold out for choosing the strength)".to_string(),
-        None => "the built-in default: the strength search did not run, see the warning above)".to_string(),
-    };
-    println!(
-        "smoothing default: {} ({explained}",
-        model.smoothing.describe()
-    );
+    println!("smoothing default: {}", trained.smoothing_statement());
     let ranked = model.ranked_importances();
     let top: Vec<String> = ranked
         .iter()
@@ -185,22 +170,4 @@ pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
         args.model.display()
     );
     Ok(())
-}
-
-/// Why the search chose what it chose, with its scores and its share of the time.
-fn explain_choice(c: &StrengthChoice, total_seconds: f64) -> String {
-    format!(
-        "best held-out mean IoU, tie-break boundary F1, of a {SEARCH_TREES}-tree forest trained on {} images and scored on {} ({}){}; {:.1} s, {:.0} % of training; --smooth-strength W skips this)\n  strength mean IoU/boundary F1: {}",
-        c.trained_on,
-        c.held_out.len(),
-        c.held_out.join(", "),
-        if c.scribbles {
-            ", scored on the labelled strokes only (scribble labels)"
-        } else {
-            ""
-        },
-        c.seconds,
-        100.0 * c.seconds / total_seconds.max(1e-9),
-        c.scores_line()
-    )
 }

@@ -12,6 +12,7 @@ pub mod drift;
 pub mod score;
 pub mod smoothing_strength;
 pub mod suggest;
+pub mod suggest_files;
 pub mod uncertainty;
 
 pub use boundary::BoundaryCounts;

@@ -68,8 +68,8 @@ pub fn state(ws: &Workspace) -> Reply {
         Ok(v) => v,
         Err(e) => return Reply::error(500, e.to_string()),
     };
-    let ranks = ws.jobs.suggestion_ranks();
-    let scores = ws.jobs.image_scores();
+    let (ranks, ranked) = ws.jobs.suggestion_ranks();
+    let (scores, scores_current) = ws.jobs.image_scores();
     let list: Vec<Value> = images
         .iter()
         .filter(|p| inside(&ws.root, p).is_some())
@@ -90,6 +90,7 @@ pub fn state(ws: &Workspace) -> Reply {
                 "size": size,
                 "labelled": counts,
                 "score": scores.get(&name),
+                "score_current": scores_current,
                 "rank": ranks.get(&name),
             })
         })
@@ -102,6 +103,7 @@ pub fn state(ws: &Workspace) -> Reply {
             "classes_ready": table.is_some(),
             "unlabelled": UNLABELLED,
             "images": list,
+            "ranked": ranked,
             "model": ws.jobs.model_summary(),
             "train": ws.jobs.status_json(),
         }),

@@ -19,20 +19,23 @@ use serde_json::{json, Value};
 
 use super::dataset_api::find_image;
 use super::http::Reply;
+use super::security::inside;
 use super::Workspace;
 use crate::dataset::save::label_path;
-use crate::dataset::{read_labels_for, Dataset, UNLABELLED};
-use crate::error::Result;
+use crate::dataset::{list_images, Dataset, ImageEntry, UNLABELLED};
+use crate::error::{GroveError, Result};
 use crate::eval::areas::{count_classes, AreaTable};
 use crate::eval::crossval::cross_validate;
 use crate::eval::crossval_report::CrossvalReport;
-use crate::eval::suggest::{suggest_image, Region, SuggestConfig};
+use crate::eval::suggest::{rank, suggest_image, Region, SuggestConfig};
+use crate::eval::suggest_files::{known_pixels, suggest_file};
 use crate::imageio::{encode_png, read_image};
 use crate::prediction::Prediction;
 use crate::progress::Progress;
 use crate::segmenter::{Segmenter, TrainConfig};
 use crate::smooth::{SmoothMethod, SmoothSettings};
 use crate::tiling::DEFAULT_TILE;
+use crate::train::SmoothingRequest;
 
 /// The stage bar of the training that is running (one per process: `Progress` observers
 /// are plain functions).
@@ -45,11 +48,23 @@ fn observe_stage(name: &str, bar: &ProgressBar) {
 #[derive(Clone)]
 enum TrainState {
     Idle,
-    Running { started: Instant },
-    Done { seconds: f64, images: usize },
-    Failed { message: String },
+    Running {
+        started: Instant,
+    },
+    Done {
+        seconds: f64,
+        images: usize,
+        /// The model's smoothing default and why, as `grove train` states it.
+        smoothing: String,
+    },
+    Failed {
+        message: String,
+    },
 }
 
+/// What runs after a training, once its model is saved and shown: stage name, images done,
+/// images in all.
+type Background = (&'static str, usize, usize);
 /// Layers of one image under one model.
 struct ImageLayers {
     width: usize,
@@ -71,6 +86,15 @@ pub struct Jobs {
     train: Mutex<TrainState>,
     layers: Mutex<Vec<(String, u64, Arc<ImageLayers>)>>,
     held_out: Mutex<Option<HeldOut>>,
+    ranking: Mutex<Option<Ranking>>,
+    background: Mutex<Option<Background>>,
+}
+
+/// The images ranked by what labelling them could settle, under one model generation.
+struct Ranking {
+    generation: u64,
+    /// Rank per image name (1 = label this next), as `grove suggest` on DATA/images ranks.
+    ranks: HashMap<String, usize>,
 }
 
 /// Fewest labelled images for which the workspace cross-validates after training. Below it
@@ -107,6 +131,8 @@ impl Jobs {
             train: Mutex::new(TrainState::Idle),
             layers: Mutex::new(Vec::new()),
             held_out: Mutex::new(None),
+            ranking: Mutex::new(None),
+            background: Mutex::new(None),
         })
     }
 
@@ -122,12 +148,19 @@ impl Jobs {
         };
         let p = &m.provenance;
         let held_out = self.held_out.lock().expect("held-out lock poisoned");
+        let crossval_coming =
+            p.training_images.len() >= CROSSVAL_MIN_IMAGES && self.background().is_some();
         let scores = match held_out.as_ref().filter(|h| h.generation == generation) {
             Some(h) => h.summary.clone(),
             None => json!({
                 "kind": "oob",
                 "oob_accuracy": p.oob_accuracy,
-                "caveat": format!("out-of-bag accuracy on sampled pixels of the training images: optimistic, because pixels of one image are alike; a held-out image score is the honest one (from {CROSSVAL_MIN_IMAGES} labelled images on, training also cross-validates by image)"),
+                "crossval_pending": crossval_coming,
+                "caveat": if crossval_coming {
+                    "out-of-bag accuracy on sampled pixels of the training images: optimistic, because pixels of one image are alike; the cross-validation by image that replaces it is running".to_string()
+                } else {
+                    format!("out-of-bag accuracy on sampled pixels of the training images: optimistic, because pixels of one image are alike; a held-out image score is the honest one (from {CROSSVAL_MIN_IMAGES} labelled images on, training also cross-validates by image)")
+                },
             }),
         };
         json!({
@@ -139,19 +172,42 @@ impl Jobs {
         })
     }
 
-    /// Suggestion rank per image name (1 = label this next), when known.
-    pub fn suggestion_ranks(&self) -> HashMap<String, usize> {
-        HashMap::new()
+    /// Suggestion rank per image name (1 = label this next) under the current model, and
+    /// how many images were ranked.
+    pub fn suggestion_ranks(&self) -> (HashMap<String, usize>, usize) {
+        let generation = self.generation.load(Ordering::SeqCst);
+        let ranking = self.ranking.lock().expect("ranking lock poisoned");
+        ranking
+            .as_ref()
+            .filter(|r| r.generation == generation)
+            .map_or_else(Default::default, |r| (r.ranks.clone(), r.ranks.len()))
     }
 
-    /// Last held-out score per image name, when known.
-    pub fn image_scores(&self) -> HashMap<String, f64> {
+    /// The last held-out score per image name (mean IoU of the cross-validation fold model
+    /// that did not see it), and whether it is of the current model.
+    pub fn image_scores(&self) -> (HashMap<String, f64>, bool) {
         let generation = self.generation.load(Ordering::SeqCst);
         let held_out = self.held_out.lock().expect("held-out lock poisoned");
-        held_out
-            .as_ref()
-            .filter(|h| h.generation == generation)
-            .map_or_else(HashMap::new, |h| h.per_image.clone())
+        held_out.as_ref().map_or_else(Default::default, |h| {
+            (h.per_image.clone(), h.generation == generation)
+        })
+    }
+
+    fn background(&self) -> Option<Background> {
+        *self.background.lock().expect("background lock poisoned")
+    }
+
+    fn set_background(&self, b: Option<Background>) {
+        *self.background.lock().expect("background lock poisoned") = b;
+    }
+
+    /// A newer training has started (or finished) since `generation`'s: its work is moot.
+    fn superseded(&self, generation: u64) -> bool {
+        self.generation.load(Ordering::SeqCst) != generation
+            || matches!(
+                *self.train.lock().expect("train lock poisoned"),
+                TrainState::Running { .. }
+            )
     }
 
     pub fn status_json(&self) -> Value {
@@ -172,18 +228,28 @@ impl Jobs {
                     "seconds": started.elapsed().as_secs_f64(),
                 })
             }
-            TrainState::Done { seconds, images } => json!({
+            TrainState::Done {
+                seconds,
+                images,
+                smoothing,
+            } => json!({
                 "state": "done",
                 "seconds": seconds,
                 "images": images,
+                "smoothing": smoothing,
                 "generation": self.generation.load(Ordering::SeqCst),
+                "background": self.background().map(|(stage, done, total)| {
+                    json!({"stage": stage, "done": done, "total": total})
+                }),
             }),
             TrainState::Failed { message } => json!({"state": "failed", "message": message}),
         }
     }
 }
 
-/// Starts training on every labelled image, unless a training is running.
+/// Starts training on every labelled image, unless a training is running. The training
+/// counts as done once its model is saved; the images are then ranked for labelling and, with
+/// enough labelled images, cross-validated, in the background (a newer training stops that).
 pub fn start_training(ws: &Arc<Workspace>) -> Reply {
     {
         let mut state = ws.jobs.train.lock().expect("train lock poisoned");
@@ -197,41 +263,19 @@ pub fn start_training(ws: &Arc<Workspace>) -> Reply {
     *STAGE.lock().expect("stage lock poisoned") = None;
     let ws = ws.clone();
     std::thread::spawn(move || {
-        let started = Instant::now();
-        let outcome = train(&ws);
-        let mut state = ws.jobs.train.lock().expect("train lock poisoned");
-        *state = match outcome {
-            Ok((model, images, held_out)) => {
-                *ws.jobs.model.write().expect("model lock poisoned") = Some(Arc::new(model));
-                let generation = ws.jobs.generation.fetch_add(1, Ordering::SeqCst) + 1;
-                *ws.jobs.held_out.lock().expect("held-out lock poisoned") =
-                    held_out.map(|(summary, per_image)| HeldOut {
-                        generation,
-                        summary,
-                        per_image,
-                    });
-                TrainState::Done {
-                    seconds: started.elapsed().as_secs_f64(),
-                    images,
-                }
-            }
-            Err(e) => TrainState::Failed {
+        if let Err(e) = train_then_review(&ws) {
+            *ws.jobs.train.lock().expect("train lock poisoned") = TrainState::Failed {
                 message: e.to_string(),
-            },
-        };
+            };
+        }
+        ws.jobs.set_background(None);
     });
     Reply::json(202, &json!({"state": "running"}))
 }
 
-/// Cross-validation figures for the page: its `scores` object and mean IoU per image.
-type HeldOutFigures = (Value, HashMap<String, f64>);
-
-/// The same call as `grove train DATA --model FILE` with default settings, then, with at
-/// least [`CROSSVAL_MIN_IMAGES`] images, the call of `grove crossval DATA` (a failed
-/// cross-validation, e.g. a fold left with one class, leaves the out-of-bag score shown).
-fn train(ws: &Workspace) -> Result<(Segmenter, usize, Option<HeldOutFigures>)> {
-    let ds = Dataset::open(&ws.root, ws.label_options)?;
-    // A label file the page saved empty (everything erased) is not a training image.
+/// The images the page has labelled: a label file it saved empty (everything erased) is not a
+/// training image.
+fn training_entries(ds: &Dataset) -> Result<Vec<&ImageEntry>> {
     let mut entries = Vec::new();
     for e in ds.labelled() {
         if ds
@@ -244,29 +288,110 @@ fn train(ws: &Workspace) -> Result<(Segmenter, usize, Option<HeldOutFigures>)> {
             entries.push(e);
         }
     }
+    Ok(entries)
+}
+
+/// `grove train DATA --model FILE` with default settings (`train::train`, the same call), the
+/// model published; then the ranking of `grove suggest` and the cross-validation of
+/// `grove crossval`, each published when it is ready. Errors before the model is published
+/// fail the training; later ones only leave the out-of-bag score and no ranks.
+fn train_then_review(ws: &Workspace) -> Result<()> {
+    let started = Instant::now();
+    let ds = Dataset::open(&ws.root, ws.label_options)?;
+    let entries = training_entries(&ds)?;
     let config = TrainConfig::default();
     let progress = Progress::observed(observe_stage);
-    let model = config.fit(&ds, &entries, progress)?;
-    crate::model::save(&model, &ws.model_path)?;
-    let held_out = (entries.len() >= CROSSVAL_MIN_IMAGES)
-        .then(|| {
-            let tile = crate::tiling::DEFAULT_TILE;
-            cross_validate(
-                &config,
-                &ds,
-                &entries,
-                CROSSVAL_FOLDS,
-                tile,
-                &model.smoothing.settings(),
-                progress,
-                |_, _, _, _| Ok(()),
-            )
-            .ok()
-        })
-        .flatten()
-        .map(|cv| held_out_figures(&CrossvalReport::new(&cv, &ds.classes)));
-    Ok((model, entries.len(), held_out))
+    let trained = crate::train::train(
+        &config,
+        &ds,
+        &entries,
+        SmoothingRequest::default(),
+        progress,
+    )?;
+    crate::model::save(&trained.model, &ws.model_path)?;
+    let smoothing = trained.smoothing_statement();
+    let model = Arc::new(trained.model);
+    let generation = {
+        let mut state = ws.jobs.train.lock().expect("train lock poisoned");
+        *ws.jobs.model.write().expect("model lock poisoned") = Some(model.clone());
+        let generation = ws.jobs.generation.fetch_add(1, Ordering::SeqCst) + 1;
+        ws.jobs.set_background(Some(("ranking images", 0, 0)));
+        *state = TrainState::Done {
+            seconds: started.elapsed().as_secs_f64(),
+            images: entries.len(),
+            smoothing,
+        };
+        generation
+    };
+    rank_images(ws, &model, generation);
+    if entries.len() >= CROSSVAL_MIN_IMAGES && !ws.jobs.superseded(generation) {
+        ws.jobs
+            .set_background(Some(("cross-validating", 0, entries.len())));
+        let mut scored = 0;
+        let cv = cross_validate(
+            &config,
+            &ds,
+            &entries,
+            CROSSVAL_FOLDS,
+            DEFAULT_TILE,
+            &model.smoothing.settings(),
+            Progress::new(false),
+            |_, _, _, _| {
+                scored += 1;
+                ws.jobs
+                    .set_background(Some(("cross-validating", scored, entries.len())));
+                if ws.jobs.superseded(generation) {
+                    return Err(GroveError::Data("superseded by a newer training".into()));
+                }
+                Ok(())
+            },
+        );
+        if let Ok(cv) = cv {
+            let (summary, per_image) = held_out_figures(&CrossvalReport::new(&cv, &ds.classes));
+            *ws.jobs.held_out.lock().expect("held-out lock poisoned") = Some(HeldOut {
+                generation,
+                summary,
+                per_image,
+            });
+        }
+    }
+    Ok(())
 }
+
+/// Ranks every image of DATA/images as `grove suggest MODEL DATA/images` does (the same
+/// `suggest_file` and `rank` calls, default settings). An image that cannot be read or whose
+/// labels do not fit the model is left unranked.
+fn rank_images(ws: &Workspace, model: &Segmenter, generation: u64) {
+    let Ok(images) = list_images(&ws.root.join("images")) else {
+        return;
+    };
+    let images: Vec<_> = images
+        .into_iter()
+        .filter(|p| inside(&ws.root, p).is_some())
+        .collect();
+    let cfg = SuggestConfig::default();
+    let mut found = Vec::new();
+    for (i, path) in images.iter().enumerate() {
+        if ws.jobs.superseded(generation) {
+            return;
+        }
+        ws.jobs
+            .set_background(Some(("ranking images", i, images.len())));
+        if let Ok(f) = suggest_file(model, path, None, &ws.label_options, &cfg) {
+            found.push(f.suggestion);
+        }
+    }
+    rank(&mut found);
+    let ranks = found
+        .into_iter()
+        .enumerate()
+        .map(|(i, s)| (s.image, i + 1))
+        .collect();
+    *ws.jobs.ranking.lock().expect("ranking lock poisoned") = Some(Ranking { generation, ranks });
+}
+
+/// Cross-validation figures for the page: its `scores` object and mean IoU per image.
+type HeldOutFigures = (Value, HashMap<String, f64>);
 
 /// What the page shows of a cross-validation (keys read by `renderModel` in app.js).
 fn held_out_figures(r: &CrossvalReport) -> HeldOutFigures {
@@ -346,19 +471,18 @@ fn layers_of(
     // Pixels the user has labelled are never suggested, as in `grove suggest --labels`; an
     // unreadable label file only means none are excluded (the label API reports it).
     let lpath = label_path(&ws.root, name);
-    let known: Option<Vec<bool>> = lpath
+    let known = lpath
         .is_file()
         .then(|| {
-            read_labels_for(
+            known_pixels(
                 &lpath,
-                &model.classes,
+                &model,
                 &ws.label_options,
                 (probs.width, probs.height),
             )
             .ok()
         })
-        .flatten()
-        .map(|m| m.indices.iter().map(|&c| c != UNLABELLED).collect());
+        .flatten();
     let regions = suggest_image(
         name,
         &probs,

@@ -12,7 +12,7 @@ use std::path::{Path, PathBuf};
 
 use crate::dataset::ClassTable;
 use crate::error::Result;
-use crate::imageio::{output_path, write_grey_png, write_label_png, write_rgb_png, RasterImage};
+use crate::imageio::{output_path, RasterImage};
 use crate::prediction::Prediction;
 
 /// Which optional outputs to write (serialised into batch resume records).
@@ -143,7 +143,8 @@ pub struct WrittenOutputs {
 }
 
 /// Writes the outputs for one image: maps of `prediction.labels`, confidence, uncertainty
-/// and probability maps of `prediction.probabilities` (smoothed ones after mean-field).
+/// and probability maps of `prediction.probabilities` (smoothed ones after mean-field),
+/// through the same writers as an image streamed band by band ([`stream::MapWriters`]).
 pub fn write_outputs(
     out_dir: &Path,
     stem: &str,
@@ -153,35 +154,11 @@ pub fn write_outputs(
     opts: &OutputOptions,
 ) -> Result<WrittenOutputs> {
     let probs = &prediction.probabilities;
-    let (w, h) = (probs.width, probs.height);
-    let index = prediction.labels.clone();
-    let ids: Vec<u8> = index
-        .iter()
-        .map(|&c| classes.classes()[c as usize].id)
-        .collect();
-    let paths = OutputPaths::new(out_dir, stem, classes, opts);
-    write_label_png(&paths.labels, w, h, &ids, &classes.palette())?;
-    if let Some(path) = &paths.overlay {
-        let rgb = overlay(image, &index, classes, &opts.tint(classes.len()));
-        write_rgb_png(path, w, h, &rgb)?;
-    }
-    if let Some(path) = &paths.confidence {
-        let conf: Vec<u8> = probs.confidence().into_iter().map(to_u8).collect();
-        write_grey_png(path, w, h, &conf)?;
-    }
-    if let Some([margin, entropy]) = &paths.uncertainty {
-        let maps = crate::eval::uncertainty::UncertaintyMaps::new(probs);
-        for (path, map) in [(margin, &maps.margin), (entropy, &maps.entropy)] {
-            let bytes: Vec<u8> = map.iter().map(|&v| to_u8(v)).collect();
-            write_grey_png(path, w, h, &bytes)?;
-        }
-    }
-    for (c, path) in paths.probabilities.iter().enumerate() {
-        let p: Vec<u8> = probs.class_plane(c).data.into_iter().map(to_u8).collect();
-        write_grey_png(path, w, h, &p)?;
-    }
+    let size = (probs.width, probs.height);
+    let mut writers = stream::MapWriters::create(out_dir, stem, size, classes, opts)?;
+    writers.write_band(image, prediction)?;
     Ok(WrittenOutputs {
-        index,
-        files: paths.all().into_iter().map(Path::to_path_buf).collect(),
+        index: prediction.labels.clone(),
+        files: writers.finish()?,
     })
 }

@@ -65,11 +65,13 @@ pub struct ApplyArgs {
     #[arg(long)]
     pub force: bool,
     /// Predict in tiles of N × N pixels (plus a halo), bounding memory by the tile size;
-    /// 0 = the whole image at once. The result does not depend on it.
+    /// 0 = the whole image at once. The forest's result does not depend on it. With N > 0,
+    /// PNG and TIFF images above 8 megapixels are also streamed: read, predicted and written
+    /// band by band, never held whole.
     #[arg(long, value_name = "N", default_value_t = crate::tiling::DEFAULT_TILE)]
     pub tile: usize,
     /// Print one JSON line per image on stdout (status done/skipped, image, outputs, pixels,
-    /// seconds spent in this run, shard); the summary goes to stderr.
+    /// seconds spent in this run, shard, streamed); the summary goes to stderr.
     #[arg(long)]
     pub log_json: bool,
     #[command(flatten)]
@@ -86,6 +88,8 @@ struct LogLine<'a> {
     pixels: u64,
     seconds: f64,
     shard: Option<&'a str>,
+    /// Read and written band by band rather than whole (large PNG and TIFF images).
+    streamed: bool,
 }
 
 /// `shard` is this run's (a skipped image may have been made under another split), and a
@@ -99,6 +103,7 @@ fn log_json(status: &str, rec: &ImageRecord, shard: Option<Shard>) {
         pixels: rec.pixels,
         seconds: if status == "done" { rec.seconds } else { 0.0 },
         shard: shard.as_deref(),
+        streamed: rec.streamed,
     };
     let mut out = std::io::stdout().lock();
     // A closed pipe ends the process (SIGPIPE); other write errors are not worth a failure.
@@ -254,6 +259,15 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
             }
         }
         BatchEvent::Warning(w) => bar.suspend(|| eprintln!("warning: {w}")),
+        BatchEvent::Rows {
+            image,
+            rows,
+            height,
+        } => {
+            // A streamed image can take minutes: say how far into it the run is.
+            let name = image.file_name().unwrap_or_default().to_string_lossy();
+            bar.set_message(format!("{name} {} %", rows * 100 / height.max(1)));
+        }
     })?;
     bar.finish_and_clear();
     areas.write(&args.out)?;

@@ -6,7 +6,7 @@
 // label files on disk, and screenshots OUTDIR/*.png (docs/workspace-*.png with
 // GROVE_UPDATE_DOCS=1).
 import { spawn } from 'node:child_process';
-import { readFileSync, writeFileSync, copyFileSync } from 'node:fs';
+import { readFileSync, writeFileSync, copyFileSync, existsSync, renameSync } from 'node:fs';
 import { join } from 'node:path';
 import { launch } from './lib.mjs';
 
@@ -147,6 +147,15 @@ check(stats.stroke_p95 < 16, `brush stroke handler p95 ${stats.stroke_p95} ms < 
 await saved();
 await page.keyboard.press('Control+z');
 await saved();
+// The big image was for these timings only: ranking it after every training (a 12-megapixel
+// prediction, as `grove suggest` would make) would add most of a minute to each.
+for (const dir of ['images', 'labels']) {
+  const f = join(data, dir, 'big_field.png');
+  if (existsSync(f)) renameSync(f, join(data, '..', `big_field-${dir}.png`));
+}
+await openImage(plan.images[0].image);
+await page.evaluate(() => refreshState());
+check(!(await page.locator('#image-list li[data-name="big_field"]').count()), 'big_field gone from the list');
 
 // 4. Train from the page; the page stays usable (open another image meanwhile).
 const trainStart = Date.now();
@@ -161,6 +170,15 @@ check(await page.locator('#layer-prediction').isChecked(), 'prediction layer sho
 check(await page.locator('#scores td').count() > 0, 'scores shown');
 check((await page.locator('#scores .caveat').count()) > 0 || (await page.locator('#scores').textContent()).includes('by image'), 'score caveat or crossval shown');
 check(await page.locator('#areas tr').count() >= 2, 'areas shown');
+check(await page.evaluate(() => $('layer-list').dataset.stale === 'false' && !document.querySelector('#layer-list li.stale')), 'fresh layers not marked stale');
+// After the model: every image ranked as `grove suggest` ranks them (tests/serve_http.rs
+// compares the ranks with the command's), shown in the list.
+await page.waitForFunction(() => !S.reviewing && S.ranked === S.images.length, null, { timeout: 60000 });
+const ranks = await page.$$eval('#image-list li', (lis) => lis.map((li) => [li.dataset.name, (li.querySelector('.rank') || {}).textContent]));
+check(ranks.every(([, r]) => /^suggested #\d+ of \d+$/.test(r || '')), `every image shows its rank: ${JSON.stringify(ranks)}`);
+const firstBars = await page.locator(`#image-list li[data-name="${plan.images[0].image}"] .bars`).getAttribute('title');
+check(/^labelled pixels: .+ \d/.test(firstBars), `labelled pixels per class in the list: ${firstBars}`);
+log('ranked', ranks.length, 'images');
 await shot('workspace-2-trained');
 // The regions `grove suggest` ranks highest: a layer of boxes, and the button jumps to them
 // best first, each time moving the view.
@@ -180,7 +198,16 @@ if (regions > 1) {
   const second = await viewOf();
   check(second.cursor === 1 && (second.ox !== first.ox || second.oy !== first.oy || second.scale !== first.scale), 'view moved to region 2');
 }
-log(`${regions} suggested regions; the button moved the view`);
+// Past this image's last region the button opens the next image in suggestion order.
+const order = await page.evaluate(() => S.images.filter((i) => i.rank != null).sort((a, b) => a.rank - b.rank).map((i) => i.name));
+const hereAt = order.indexOf(plan.images[3].image);
+for (let k = await page.evaluate(() => S.regionCursor); k < regions - 1; k++) await page.click('#next-region');
+await page.click('#next-region');
+const nextName = order[(hereAt + 1) % order.length];
+await page.waitForFunction((n) => S.img.name === n && S.regionCursor === 0 || (S.img.name === n && S.layers.gen != null && S.layers.regions.length === 0), nextName, { timeout: 30000 });
+log(`${regions} suggested regions; the button moved the view, then opened ${nextName} (next by rank)`);
+await openImage(plan.images[3].image);
+await page.waitForFunction(() => S.layers.gen != null);
 
 // 5. Correct: paint this image's planned strokes over the prediction, retrain.
 await page.keyboard.press('f');
@@ -190,10 +217,20 @@ await dumpLabels(plan.images[3].image);
 await shot('workspace-4-correct');
 await page.click('#train');
 await page.waitForFunction(() => S.training);
+// While the new model is being made the old layers are marked stale, in the list and on the
+// canvas; once it is there they are reloaded and current again.
+check(await page.evaluate(() => $('layer-list').dataset.stale === 'true' && document.querySelectorAll('#layer-list li.stale').length >= 3), 'layers marked stale while retraining');
 await page.waitForFunction(() => !S.training && S.model && S.model.images === 4, null, { timeout: 60000 });
-await page.waitForFunction(() => S.img.layerImgs.prediction && S.img.layerImgs.prediction.complete && S.layers.gen >= 2);
+await page.waitForFunction(() => S.img.layerImgs.prediction && S.img.layerImgs.prediction.complete && S.layers.gen >= 2 && S.layers.gen === S.model.generation);
+check(await page.evaluate(() => $('layer-list').dataset.stale === 'false' && !document.querySelector('#layer-list li.stale')), 'layers current after the retrain');
+// Four labelled images: the score becomes the cross-validation by image (`grove crossval`'s
+// call), and each labelled image shows its held-out score.
+await page.waitForFunction(() => $('scores').dataset.kind === 'crossval' && !S.reviewing, null, { timeout: 120000 });
+check((await page.locator('#scores').textContent()).includes('by image'), 'crossval score shown');
+const heldOut = await page.$$eval('#image-list .score', (s) => s.map((e) => e.textContent));
+check(heldOut.length === 4 && heldOut.every((t) => /^held-out IoU \d\.\d\d$/.test(t)), `held-out score per labelled image: ${heldOut}`);
 await shot('workspace-5-retrained');
-log('corrected and retrained');
+log('corrected and retrained; cross-validated');
 
 // 6. Kill the server mid-session and start it again: everything saved is there.
 await openImage(plan.images[4].image);

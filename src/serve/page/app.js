@@ -26,7 +26,9 @@ const S = {
     regions: { on: true, alpha: 1 },
   },
   regionCursor: -1,
-  training: false,
+  training: false,      // a training is running (its model is not there yet)
+  reviewing: null,      // after a training: {stage, done, total} of the ranking / cross-validation
+  ranked: 0,            // images ranked by the current model
 };
 
 // Timings the browser tests read: stroke handler and frame draw, in ms.
@@ -105,11 +107,14 @@ async function refreshState() {
   S.classesReady = st.classes_ready;
   S.images = st.images;
   S.model = st.model;
+  S.ranked = st.ranked || 0;
+  if (st.train && st.train.smoothing) S.smoothing = st.train.smoothing;
   $('dataset').textContent = st.dataset || '';
   renderImageList();
   renderClasses();
   renderModel();
-  if (st.train && st.train.state === 'running' && !S.training) pollTraining();
+  if (st.train && (st.train.state === 'running' || (st.train.state === 'done' && st.train.background)) && !S.polling) pollTraining();
+  renderLayers();
   return st;
 }
 
@@ -124,20 +129,31 @@ function renderImageList() {
   S.images.forEach((im) => {
     const counts = im.labelled || [];
     const total = counts.reduce((a, b) => a + b, 0);
-    const bars = el('div', { class: 'bars', title: 'labelled pixels per class' });
+    const perClass = counts.map((c, i) => (c && S.classes[i] ? `${S.classes[i].name} ${c.toLocaleString()}` : null)).filter(Boolean);
+    const bars = el('div', { class: 'bars', title: perClass.length ? `labelled pixels: ${perClass.join(', ')}` : 'no labelled pixels' });
     if (total > 0) {
       counts.forEach((c, i) => {
         if (!c || !S.classes[i]) return;
         bars.appendChild(el('span', { style: { width: `${(100 * c) / total}%`, background: S.classes[i].color } }));
       });
     }
-    const meta = [];
-    meta.push(total > 0 ? `${total.toLocaleString()} px labelled` : 'not labelled');
-    if (im.score != null) meta.push(`IoU ${im.score.toFixed(2)}`);
-    if (im.rank != null) meta.push(`suggested #${im.rank}`);
+    const meta = [el('span', { class: 'px', text: total > 0 ? `${total.toLocaleString()} px labelled` : 'not labelled' })];
+    // The held-out score of the last cross-validation: of an older model once retrained.
+    if (im.score != null) {
+      meta.push(el('span', {
+        class: im.score_current ? 'score' : 'score stale',
+        text: `held-out IoU ${im.score.toFixed(2)}${im.score_current ? '' : ' (older model)'}`,
+        title: 'mean IoU of this image, scored by a cross-validation model trained without it',
+      }));
+    }
+    if (im.rank != null) {
+      meta.push(el('span', { class: 'rank', text: `suggested #${im.rank} of ${S.ranked}`, title: 'rank by what labelling this image could settle, as grove suggest ranks it' }));
+    }
+    const metaLine = el('span', { class: 'meta' });
+    meta.forEach((m, k) => { if (k) metaLine.appendChild(document.createTextNode(' · ')); metaLine.appendChild(m); });
     const li = el('li', { 'data-name': im.name, onclick: () => openImage(im.name) },
       el('span', { class: 'name', text: im.name, title: im.name }),
-      el('span', { class: 'meta', text: meta.join(' · ') }),
+      metaLine,
       bars);
     if (S.img && S.img.name === im.name) li.classList.add('current');
     list.appendChild(li);
@@ -257,7 +273,7 @@ async function openImage(name) {
   renderClasses();
   renderAreas();
   renderLayers();
-  if (S.model) loadLayers();
+  if (S.model) S.img.layersLoading = loadLayers();
 }
 
 function repaintAllLabels() {
@@ -391,10 +407,19 @@ function draw() {
     const usePreview = im.pf > 1 && scale * dpr * im.pf <= 1.5;
     blit(usePreview ? im.preview : im.canvas, S.opacity, usePreview ? im.pf : 1);
   }
+  if (S.layers.gen != null && layersStale()) {
+    ctx.font = '13px "DejaVu Sans", sans-serif';
+    const note = S.training ? 'layers of the previous model: retraining…' : 'layers of the previous model: reloading…';
+    ctx.fillStyle = 'rgba(40, 30, 0, 0.75)';
+    ctx.fillRect(8, 8, ctx.measureText(note).width + 16, 24);
+    ctx.fillStyle = '#ffd76a';
+    ctx.fillText(note, 16, 25);
+  }
   if (S.layerView.regions.on) {
     ctx.lineWidth = 2;
+    const grey = regionsStale();
     S.layers.regions.forEach((r, k) => {
-      ctx.strokeStyle = k === S.regionCursor ? '#ffe14d' : '#ff4fd8';
+      ctx.strokeStyle = grey ? '#b8b8b8' : k === S.regionCursor ? '#ffe14d' : '#ff4fd8';
       ctx.setLineDash(k === S.regionCursor ? [] : [6, 4]);
       ctx.strokeRect(ox + r.x * scale, oy + r.y * scale, r.width * scale, r.height * scale);
       ctx.setLineDash([]);
@@ -746,14 +771,24 @@ async function startTraining() {
   pollTraining();
 }
 
+// Follows a training until its model is there (the layers are then reloaded), and then the
+// ranking and cross-validation that run after it until they are done (ranks and held-out
+// scores are then refreshed). A new training may be started meanwhile.
 async function pollTraining() {
+  if (S.polling) return;
+  S.polling = true;
   S.training = true;
   $('train').disabled = true;
   $('train-progress').hidden = false;
+  renderLayers();
+  requestDraw();
+  let shownGeneration = S.model ? S.model.generation : null;
   for (;;) {
     let st;
     try { st = await apiJson('/api/train'); } catch (e) { await sleep(1000); continue; }
     if (st.state === 'running') {
+      S.training = true;
+      $('train').disabled = true;
       const frac = st.total ? st.done / st.total : 0;
       $('train-bar').style.width = `${Math.round(100 * frac)}%`;
       $('train-state').textContent = `training: ${st.stage} ${st.total ? `${st.done}/${st.total}` : ''} (${st.seconds.toFixed(1)} s)`;
@@ -762,18 +797,42 @@ async function pollTraining() {
     }
     S.training = false;
     $('train').disabled = false;
-    $('train-progress').hidden = true;
     if (st.state === 'failed') {
+      S.reviewing = null;
+      $('train-progress').hidden = true;
       $('train-state').textContent = 'training failed';
       say(st.message);
-    } else if (st.state === 'done') {
-      $('train-state').textContent = `trained on ${st.images} images in ${st.seconds.toFixed(1)} s`;
-      say('');
+      await refreshState();
+      break;
     }
-    await refreshState();
-    if (S.img && S.model) loadLayers();
-    return;
+    if (st.state !== 'done') { S.reviewing = null; $('train-progress').hidden = true; break; }
+    S.trainedText = `trained on ${st.images} images in ${st.seconds.toFixed(1)} s`;
+    S.smoothing = st.smoothing || '';
+    if (st.generation !== shownGeneration) {
+      shownGeneration = st.generation;
+      say('');
+      await refreshState();
+      if (S.img && S.model) loadLayers();
+    }
+    const bg = st.background;
+    if (bg) {
+      S.reviewing = bg;
+      $('train-bar').style.width = `${Math.round(100 * (bg.total ? bg.done / bg.total : 0))}%`;
+      $('train-state').textContent = `${S.trainedText}; ${bg.stage}${bg.total ? ` ${bg.done}/${bg.total}` : ''}…`;
+      await sleep(400);
+      continue;
+    }
+    const wasReviewing = S.reviewing;
+    S.reviewing = null;
+    $('train-progress').hidden = true;
+    $('train-state').textContent = S.trainedText;
+    if (wasReviewing) await refreshState();
+    break;
   }
+  S.polling = false;
+  S.training = false;
+  renderLayers();
+  requestDraw();
 }
 
 function sleep(ms) { return new Promise((r) => setTimeout(r, ms)); }
@@ -783,7 +842,7 @@ function renderModel() {
   box.replaceChildren();
   const m = S.model;
   if (!m) { return; }
-  if (!S.training) $('train-state').textContent = `model: ${m.images} training images`;
+  if (!S.polling) $('train-state').textContent = S.trainedText || `model: ${m.images} training images`;
   const sc = m.scores || {};
   const t = el('table');
   const row = (k, v) => t.appendChild(el('tr', {}, el('td', { text: k }), el('td', { class: 'num', text: v })));
@@ -795,7 +854,10 @@ function renderModel() {
     row('out-of-bag accuracy', sc.oob_accuracy.toFixed(3));
   }
   box.appendChild(t);
+  box.dataset.kind = sc.kind || '';
   if (sc.caveat) box.appendChild(el('p', { class: 'caveat', text: sc.caveat }));
+  // The first line of `grove train`'s statement; the per-strength scores on hover.
+  if (S.smoothing) box.appendChild(el('p', { class: 'hint smoothing', text: `smoothing default: ${S.smoothing.split('\n')[0]}`, title: S.smoothing }));
 }
 
 async function loadLayers() {
@@ -804,7 +866,7 @@ async function loadLayers() {
   try {
     const l = await apiJson(`/api/layers/${enc(im.name)}`);
     if (S.img !== im) return;
-    S.layers = { list: l.layers, regions: l.regions || [], gen: l.generation, areas: l.areas || [] };
+    S.layers = { list: l.layers, regions: l.regions || [], gen: l.generation, areas: l.areas || [], edits: im.edits };
     for (const kind of l.layers) {
       const img = new Image();
       img.onload = () => requestDraw();
@@ -833,9 +895,27 @@ function toggleLayer(kind) {
   requestDraw();
 }
 
+// Layers are of one model generation: once a training runs or has replaced that model they
+// are stale until reloaded, and are marked so (never shown as current).
+function layersStale() {
+  return S.layers.gen != null && (S.training || !S.model || S.layers.gen !== S.model.generation);
+}
+
+// Suggested regions also skip the pixels labelled when they were computed.
+function regionsStale() {
+  return layersStale() || (S.img && S.layers.edits != null && S.img.edits !== S.layers.edits);
+}
+
 function renderLayers() {
   const ul = $('layer-list');
   ul.replaceChildren();
+  const stale = layersStale();
+  ul.dataset.stale = String(stale);
+  if (stale) {
+    ul.appendChild(el('li', { class: 'stale-note', text: S.training ? 'of the previous model: retraining…' : 'of the previous model: reloading…' }));
+  } else if (S.layers.gen != null && regionsStale()) {
+    ul.appendChild(el('li', { class: 'stale-note', text: 'suggested regions predate your latest strokes: retrain to refresh them' }));
+  }
   const kinds = [...S.layers.list];
   if (S.layers.regions.length) kinds.push('regions');
   if (!kinds.length) {
@@ -846,7 +926,8 @@ function renderLayers() {
     const box = el('input', { type: 'checkbox', id: `layer-${kind}` });
     box.checked = lv.on;
     box.addEventListener('change', () => { lv.on = box.checked; requestDraw(); });
-    const li = el('li', {}, box, el('label', { for: `layer-${kind}`, text: LAYER_NAMES[kind] || kind }));
+    const isStale = kind === 'regions' ? regionsStale() : stale;
+    const li = el('li', { class: isStale ? 'stale' : '' }, box, el('label', { for: `layer-${kind}`, text: `${LAYER_NAMES[kind] || kind}${isStale ? ' (stale)' : ''}` }));
     if (kind !== 'regions') {
       const a = el('input', { type: 'range', min: '0', max: '100', 'aria-label': `${kind} opacity` });
       a.value = String(Math.round(lv.alpha * 100));
@@ -855,7 +936,7 @@ function renderLayers() {
     }
     ul.appendChild(li);
   }
-  $('next-region').disabled = S.layers.regions.length === 0;
+  $('next-region').disabled = !(S.layers.regions.length > 0 || (S.model && S.images.some((i) => i.rank != null)));
 }
 
 function renderAreas() {
@@ -870,18 +951,38 @@ function renderAreas() {
   }
 }
 
-function nextRegion() {
+// The next region `grove suggest` ranks highest: the next one of this image, and after its
+// last, the first of the next image in suggestion order (rank 1 first).
+async function nextRegion() {
+  if (!S.model) return;
   const regs = S.layers.regions;
-  if (!S.img || !regs.length) return;
-  S.regionCursor = (S.regionCursor + 1) % regs.length;
-  const r = regs[S.regionCursor];
+  if (S.img && S.regionCursor + 1 < regs.length) { showRegion(S.regionCursor + 1); return; }
+  const ranked = S.images.filter((i) => i.rank != null).sort((a, b) => a.rank - b.rank);
+  if (!ranked.length) { if (regs.length) showRegion(0); return; }
+  const here = S.img ? ranked.findIndex((i) => i.name === S.img.name) : -1;
+  const next = ranked[(here + 1) % ranked.length];
+  if (!S.img || next.name !== S.img.name) {
+    await openImage(next.name);
+    if (!S.img || S.img.name !== next.name) return;
+    await S.img.layersLoading;
+  }
+  if (S.layers.regions.length) showRegion(0);
+  else say(`${next.name}: no region to suggest`);
+}
+
+function showRegion(k) {
+  const regs = S.layers.regions;
+  S.regionCursor = k;
+  const r = regs[k];
   const box = view.getBoundingClientRect();
   const s = Math.min(16, Math.min(box.width / r.width, box.height / r.height) * 0.6);
   S.view.scale = s;
   S.view.ox = box.width / 2 - (r.x + r.width / 2) * s;
   S.view.oy = box.height / 2 - (r.y + r.height / 2) * s;
   S.layerView.regions.on = true;
-  say(`suggested region ${S.regionCursor + 1} of ${regs.length}${r.classes ? `: ${r.classes.join(' vs ')}` : ''}`);
+  const rank = (S.images.find((i) => i.name === S.img.name) || {}).rank;
+  say(`suggested region ${k + 1} of ${regs.length}${rank != null ? ` in image #${rank}` : ''}${r.classes ? `: ${r.classes.join(' vs ')}` : ''}`);
+  renderLayers();
   requestDraw();
 }
 $('next-region').addEventListener('click', nextRegion);

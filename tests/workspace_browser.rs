@@ -73,6 +73,32 @@ fn find_stroke(
     None
 }
 
+/// Up to two strokes per class of `table` (its order = the page's class keys), each inside that
+/// class's ground-truth region `truth` (w × h class ids).
+fn strokes_inside(truth: &[u8], w: usize, h: usize, table: &ClassTable) -> Vec<Value> {
+    let mut strokes = Vec::new();
+    for (index, c) in table.classes().iter().enumerate() {
+        let top = find_stroke(truth, w, h, c.id, 36, 7, false);
+        let bottom = find_stroke(truth, w, h, c.id, 36, 7, true);
+        for [x, y] in top
+            .into_iter()
+            .chain(bottom.filter(|b| top.is_some_and(|t| t[1].abs_diff(b[1]) > 20)))
+        {
+            strokes.push(json!({"class": index, "size": 8, "points": [[x, y], [x + 18, y + 1], [x + 36, y]]}));
+        }
+    }
+    strokes
+}
+
+/// The class table as the page is given it (names and colours in key order).
+fn page_classes(table: &ClassTable) -> Vec<Value> {
+    table
+        .classes()
+        .iter()
+        .map(|c| json!({"name": c.name, "color": grove::dataset::classes::hex_colour(c.color)}))
+        .collect()
+}
+
 /// Writes the dataset and returns the stroke plan: per image, strokes of the demo classes
 /// placed inside their ground-truth regions (as a user would scribble them).
 fn prepare(data: &Path) -> Value {
@@ -85,18 +111,7 @@ fn prepare(data: &Path) -> Value {
         let name = format!("farm_{i:02}");
         grove::imageio::write_rgb_png(&images.join(format!("{name}.png")), 256, 256, &s.rgb)
             .unwrap();
-        let mut strokes = Vec::new();
-        for (index, c) in table.classes().iter().enumerate() {
-            let top = find_stroke(&s.labels, 256, 256, c.id, 36, 7, false);
-            let bottom = find_stroke(&s.labels, 256, 256, c.id, 36, 7, true);
-            for [x, y] in top
-                .into_iter()
-                .chain(bottom.filter(|b| top.is_some_and(|t| t[1].abs_diff(b[1]) > 20)))
-            {
-                strokes.push(json!({"class": index, "size": 8, "points": [[x, y], [x + 18, y + 1], [x + 36, y]]}));
-            }
-        }
-        plan.push(json!({"image": name, "strokes": strokes}));
+        plan.push(json!({"image": name, "strokes": strokes_inside(&s.labels, 256, 256, &table)}));
     }
     // 4000 × 3000 for the zoom / pan / brush timings: a 1000 × 750 scene enlarged 4× (a
     // full-size render would take most of the test's time budget).
@@ -114,7 +129,7 @@ fn prepare(data: &Path) -> Value {
     )
     .unwrap();
     json!({
-        "classes": table.classes().iter().map(|c| json!({"name": c.name, "color": grove::dataset::classes::hex_colour(c.color)})).collect::<Vec<_>>(),
+        "classes": page_classes(&table),
         "hostile_class": "<img src=x onerror=alert(1)><script>alert(3)",
         "images": plan,
     })
@@ -243,4 +258,106 @@ fn workspace_in_headless_chromium() {
     }
     let model = grove::model::load(&data.join("model.grove")).unwrap();
     assert!(model.provenance.training_images.len() >= 3);
+}
+
+/// Not a test: the workspace's timings for the README (`benches/workspace.sh` runs it, one run,
+/// figures printed, nothing asserted about time; see the preamble of benches/). On the demo
+/// scenes `grove demo` makes (seed 7, 384 px): from `grove label` on images only to the first
+/// prediction layer, with the class table made and strokes painted in the page by the script
+/// (tests/browser/measure.mjs); the brush on a 4000 × 3000 image; and a training of 20 fully
+/// labelled demo images from the page against `grove train` on the same folder.
+#[test]
+#[ignore = "a measurement: benches/workspace.sh"]
+fn measure_workspace() {
+    let root = PathBuf::from(env!("CARGO_MANIFEST_DIR"));
+    browser_ready(&root).unwrap();
+    let t = tempfile::tempdir().unwrap();
+    let grove = env!("CARGO_BIN_EXE_grove");
+    // 1. A new dataset: six demo images, no labels, no class table.
+    let fresh = t.path().join("fresh");
+    let table = demo_table();
+    let mut plan = Vec::new();
+    for i in 0..6u32 {
+        let s = render_scene(7, i, 384, 384);
+        let name = format!("farm_{i:03}");
+        grove::imageio::write_rgb_png(
+            &fresh.join("images").join(format!("{name}.png")),
+            384,
+            384,
+            &s.rgb,
+        )
+        .unwrap();
+        plan.push(json!({"image": name, "strokes": strokes_inside(&s.labels, 384, 384, &table)}));
+    }
+    let small = render_scene(7, 99, 1000, 750);
+    let mut big = vec![0u8; 4000 * 3000 * 3];
+    for (i, px) in big.chunks_exact_mut(3).enumerate() {
+        let (x, y) = ((i % 4000) / 4, (i / 4000) / 4);
+        px.copy_from_slice(&small.rgb[(y * 1000 + x) * 3..(y * 1000 + x) * 3 + 3]);
+    }
+    let big_path = t.path().join("big_field.png");
+    grove::imageio::write_rgb_png(&big_path, 4000, 3000, &big).unwrap();
+    // 2. Twenty labelled demo images, trained by the page and by the command.
+    let full = t.path().join("demo20");
+    grove::demo::write_demo_dataset(&full, 0..20, 384, 7).unwrap();
+    let cli_train = || {
+        let t0 = std::time::Instant::now();
+        let out = Command::new(grove)
+            .args(["train", full.to_str().unwrap(), "--model"])
+            .arg(t.path().join("cli.grove"))
+            .args(["--quiet", "--force"])
+            .output()
+            .unwrap();
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        t0.elapsed().as_secs_f64()
+    };
+    let cli_before = cli_train();
+    let plan_path = t.path().join("plan.json");
+    let plan = json!({"classes": page_classes(&table), "images": plan});
+    std::fs::write(&plan_path, plan.to_string()).unwrap();
+    let out = root.join("target/browser-measure");
+    std::fs::create_dir_all(&out).unwrap();
+    let status = Command::new("node")
+        .arg(root.join("tests/browser/measure.mjs"))
+        .args([grove, fresh.to_str().unwrap(), plan_path.to_str().unwrap()])
+        .args([
+            big_path.to_str().unwrap(),
+            full.to_str().unwrap(),
+            out.to_str().unwrap(),
+        ])
+        .current_dir(root.join("tests/browser"))
+        .status()
+        .unwrap();
+    assert!(status.success(), "tests/browser/measure.mjs failed");
+    let cli_after = cli_train();
+    let page: Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("measure.json")).unwrap()).unwrap();
+    let page_train = page["page_train_seconds"].as_f64().unwrap();
+    let cli = (cli_before + cli_after) / 2.0;
+    // The machine is shared: the load says how much the figures are worth.
+    let load = std::fs::read_to_string("/proc/loadavg").unwrap_or_default();
+    println!(
+        "load average (1, 5, 15 min) at the end: {}",
+        load.split_whitespace()
+            .take(3)
+            .collect::<Vec<_>>()
+            .join(" ")
+    );
+    println!(
+        "grove label → first prediction layer (scripted user): {:.1} s",
+        page["first_prediction_seconds"]
+    );
+    println!(
+        "  of which training (server): {:.1} s",
+        page["first_train_seconds"]
+    );
+    println!("brush on 4000 × 3000: {}", page["brush"]);
+    println!(
+        "train 20 demo images: page {page_train:.1} s (click → model shown), grove train {cli_before:.1} s before and {cli_after:.1} s after; page / CLI = {:.2}",
+        page_train / cli
+    );
 }

@@ -5,10 +5,9 @@
 // It writes OUTDIR/result.json (+ the painted maps) for the Rust side to check against the
 // label files on disk, and screenshots OUTDIR/*.png (docs/workspace-*.png with
 // GROVE_UPDATE_DOCS=1).
-import { spawn } from 'node:child_process';
 import { readFileSync, writeFileSync, copyFileSync, existsSync, renameSync } from 'node:fs';
 import { join } from 'node:path';
-import { launch } from './lib.mjs';
+import { launch, startServer, workspaceActions } from './lib.mjs';
 
 const [grove, data, planPath, out] = process.argv.slice(2);
 const plan = JSON.parse(readFileSync(planPath, 'utf8'));
@@ -17,18 +16,8 @@ const t0 = Date.now();
 const log = (...a) => console.log(`[${((Date.now() - t0) / 1000).toFixed(1)} s]`, ...a);
 function check(ok, what) { if (!ok) throw new Error(`check failed: ${what}`); }
 
-function startServer() {
-  const p = spawn(grove, ['label', data], { stdio: ['ignore', 'pipe', 'inherit'] });
-  const url = new Promise((resolve, reject) => {
-    let text = '';
-    p.stdout.on('data', (d) => { text += d; const m = text.match(/http:\/\/\S+token=\w+/); if (m) resolve(m[0]); });
-    p.on('exit', (c) => reject(new Error(`grove label exited with ${c}: ${text}`)));
-  });
-  return { p, url };
-}
-
 const problems = [];
-let server = startServer();
+let server = startServer(grove, data);
 let url = await server.url;
 const ctx = await launch({ width: 1180, height: 860 });
 const page = ctx.pages()[0] || await ctx.newPage();
@@ -43,33 +32,7 @@ async function shot(name) {
   await page.screenshot({ path });
   if (docs && /^workspace-[1235]/.test(name)) copyFileSync(path, join(docs, `${name}.png`));
 }
-const saved = () => page.waitForFunction(() => document.getElementById('save-state').dataset.state === 'saved' && !S.img.dirty);
-
-// Image coordinates → page coordinates through the page's own view transform.
-async function toPage(x, y) {
-  const v = await page.evaluate(() => ({ ...S.view }));
-  const box = await page.locator('#view').boundingBox();
-  return [box.x + v.ox + x * v.scale, box.y + v.oy + y * v.scale];
-}
-
-async function paintStroke(s) {
-  await page.keyboard.press(String(s.class + 1));
-  await page.evaluate((size) => { const r = document.getElementById('brush-size'); r.value = String(size); r.dispatchEvent(new Event('input')); }, s.size);
-  const pts = [];
-  for (const [x, y] of s.points) pts.push(await toPage(x + 0.5, y + 0.5));
-  await page.mouse.move(pts[0][0], pts[0][1]);
-  await page.mouse.down();
-  for (let k = 1; k < pts.length; k++) {
-    await page.mouse.move(pts[k][0], pts[k][1], { steps: 6 });
-  }
-  await page.mouse.up();
-}
-
-async function openImage(name) {
-  await page.locator(`#image-list li[data-name="${name}"]`).click();
-  await page.waitForFunction((n) => S.img && S.img.name === n, name);
-}
-
+const { paintStroke, openImage, addClass, saved, resetStats, stats: brushStats } = workspaceActions(page);
 const painted = {};
 let dumpCount = 0;
 async function dumpLabels(name) {
@@ -87,12 +50,7 @@ async function dumpLabels(name) {
 await page.goto(url);
 await page.waitForSelector('#image-list li');
 check(await page.evaluate(() => !location.search.includes('token')), 'token dropped from the address bar');
-for (const c of [...plan.classes, { name: plan.hostile_class, color: '#ff00ff' }]) {
-  await page.fill('#class-name', c.name);
-  await page.fill('#class-colour', c.color);
-  await page.click('#class-add button');
-  await page.waitForFunction((n) => S.classes.some((k) => k.name === n), c.name);
-}
+for (const c of [...plan.classes, { name: plan.hostile_class, color: '#ff00ff' }]) await addClass(c);
 const names = await page.$$eval('#class-list .cname', (inputs) => inputs.map((i) => i.value));
 check(names[5] === plan.hostile_class, 'hostile class name shown as typed');
 check(await page.evaluate(() => document.querySelectorAll('body img, body script:not([src])').length === 0), 'no element injected through names');
@@ -122,7 +80,7 @@ log('painted and saved', Object.keys(painted).length, 'images');
 // 3. Brush response and zoom/pan on a 4000 × 3000 image.
 await openImage('big_field');
 await page.waitForFunction(() => [...S.tiles.values()].some((t) => t.ok));
-await page.evaluate(() => { groveStats.stroke.length = 0; groveStats.frame.length = 0; });
+await resetStats();
 const box = await page.locator('#view').boundingBox();
 const cx = box.x + box.width / 2, cy = box.y + box.height / 2;
 for (let k = 0; k < 8; k++) { await page.mouse.move(cx + k * 5, cy); await page.mouse.wheel(0, -240); await page.waitForTimeout(40); }
@@ -138,10 +96,7 @@ await page.mouse.move(cx - 150, cy);
 await page.mouse.down();
 await page.mouse.move(cx + 150, cy + 60, { steps: 40 });
 await page.mouse.up();
-const stats = await page.evaluate(() => {
-  const q = (a, p) => { const s = [...a].sort((x, y) => x - y); return s.length ? s[Math.min(s.length - 1, Math.floor(p * s.length))] : null; };
-  return { strokes: groveStats.stroke.length, stroke_p50: q(groveStats.stroke, 0.5), stroke_p95: q(groveStats.stroke, 0.95), stroke_max: Math.max(...groveStats.stroke), frames: groveStats.frame.length, frame_p50: q(groveStats.frame, 0.5), frame_p95: q(groveStats.frame, 0.95) };
-});
+const stats = await brushStats();
 log('4000x3000:', JSON.stringify(stats));
 check(stats.stroke_p95 < 16, `brush stroke handler p95 ${stats.stroke_p95} ms < 16 ms`);
 await saved();
@@ -245,7 +200,7 @@ await paintStroke(plan.images[4].strokes[1] || plan.images[4].strokes[0]);
 await page.waitForFunction(() => ['offline', 'saving'].includes(document.getElementById('save-state').dataset.state), null, { timeout: 10000 });
 const offline = await page.locator('#save-state').textContent();
 log('after kill, page says:', offline);
-server = startServer();
+server = startServer(grove, data);
 url = await server.url;
 killed = false;
 page.removeAllListeners('dialog');

@@ -1,0 +1,90 @@
+// Timings of the workspace for the README, one run, nothing asserted about time (run by
+// `benches/workspace.sh` through the ignored test `measure_workspace` in
+// tests/workspace_browser.rs, which prepares the data):
+//   node measure.mjs GROVE FRESH PLAN.json BIG.png DEMO20 OUTDIR
+// 1. `grove label FRESH` (images only) → classes made in the page → the plan's strokes painted
+//    and saved → Train → the first prediction layer drawn: seconds from the start of
+//    `grove label`. The strokes are scripted, so this is the machine's share of a user's
+//    first minute plus scripted painting, not a person's painting speed.
+// 2. The brush on BIG.png (4000 × 3000): stroke handler and frame times, in ms.
+// 3. `grove label DEMO20` (20 labelled demo images) → Train → model shown: seconds from the
+//    click; the server's own training seconds beside it.
+// Writes OUTDIR/measure.json.
+import { copyFileSync, readFileSync, writeFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { launch, startServer, workspaceActions } from './lib.mjs';
+
+const [grove, fresh, planPath, bigPath, demo20, out] = process.argv.slice(2);
+const plan = JSON.parse(readFileSync(planPath, 'utf8'));
+const log = (...a) => console.log('[measure]', ...a);
+
+const ctx = await launch({ width: 1180, height: 860 });
+const page = ctx.pages()[0] || await ctx.newPage();
+const errors = [];
+page.on('pageerror', (e) => errors.push(e.message));
+const ws = workspaceActions(page);
+const trained = (timeout) => page.waitForFunction(() => /trained on/.test(document.getElementById('train-state').textContent), null, { timeout });
+
+// 1. From `grove label` to the first prediction.
+const t0 = Date.now();
+let server = startServer(grove, fresh);
+await page.goto(await server.url);
+await page.waitForSelector('#image-list li');
+for (const c of plan.classes) await ws.addClass(c);
+for (const im of plan.images.slice(0, 3)) {
+  await ws.openImage(im.image);
+  for (const s of im.strokes) await ws.paintStroke(s);
+  await ws.saved();
+}
+const paintedAt = (Date.now() - t0) / 1000;
+await page.click('#train');
+await trained(120000);
+await page.waitForFunction(() => S.img.layerImgs.prediction && S.img.layerImgs.prediction.complete && S.img.layerImgs.prediction.naturalWidth > 0);
+await page.evaluate(() => new Promise((r) => requestAnimationFrame(() => requestAnimationFrame(r))));
+const firstPrediction = (Date.now() - t0) / 1000;
+const firstTrain = await page.evaluate(() => Number((document.getElementById('train-state').textContent.match(/in ([\d.]+) s/) || [])[1]));
+log(`first prediction ${firstPrediction.toFixed(1)} s after grove label started (classes and strokes done at ${paintedAt.toFixed(1)} s, training ${firstTrain} s)`);
+await page.screenshot({ path: join(out, 'first-prediction.png') });
+
+// 2. The brush on a 4000 × 3000 image, after the background ranking of the small ones.
+await page.waitForFunction(() => !S.reviewing && !S.polling, null, { timeout: 120000 });
+copyFileSync(bigPath, join(fresh, 'images', 'big_field.png'));
+await page.evaluate(() => refreshState());
+await ws.openImage('big_field');
+await page.waitForFunction(() => [...S.tiles.values()].some((t) => t.ok));
+await ws.resetStats();
+const box = await page.locator('#view').boundingBox();
+const cx = box.x + box.width / 2, cy = box.y + box.height / 2;
+await page.keyboard.press('2');
+await page.evaluate(() => { const r = document.getElementById('brush-size'); r.value = '60'; r.dispatchEvent(new Event('input')); });
+for (let k = 0; k < 4; k++) {
+  await page.mouse.move(cx - 200, cy - 100 + 50 * k);
+  await page.mouse.down();
+  await page.mouse.move(cx + 200, cy - 60 + 50 * k, { steps: 50 });
+  await page.mouse.up();
+}
+for (let k = 0; k < 6; k++) { await page.mouse.wheel(0, -240); await page.waitForTimeout(30); }
+const brush = await ws.stats();
+log('brush on 4000x3000:', JSON.stringify(brush));
+await ws.saved();
+server.p.kill();
+await new Promise((r) => server.p.once('exit', r));
+
+// 3. Training 20 labelled demo images from the page.
+server = startServer(grove, demo20);
+await page.goto(await server.url);
+await page.waitForSelector('#image-list li');
+const c0 = Date.now();
+await page.click('#train');
+await trained(600000);
+const pageTrain = (Date.now() - c0) / 1000;
+const serverTrain = await page.evaluate(() => Number((document.getElementById('train-state').textContent.match(/in ([\d.]+) s/) || [])[1]));
+log(`page train of 20 demo images: ${pageTrain.toFixed(1)} s click → model shown (server ${serverTrain} s)`);
+server.p.kill();
+await new Promise((r) => server.p.once('exit', r));
+await ctx.close();
+if (errors.length) throw new Error(`page errors: ${errors.join('; ')}`);
+writeFileSync(join(out, 'measure.json'), JSON.stringify({
+  first_prediction_seconds: firstPrediction, painted_seconds: paintedAt, first_train_seconds: firstTrain,
+  brush, page_train_seconds: pageTrain, page_train_server_seconds: serverTrain,
+}, null, 1));

@@ -90,6 +90,18 @@ fn strokes_inside(truth: &[u8], w: usize, h: usize, table: &ClassTable) -> Vec<V
     strokes
 }
 
+/// A 4000 × 3000 scene for the zoom / pan / brush timings: a 1000 × 750 scene enlarged 4× (a
+/// full-size render would take most of the test's time budget).
+fn write_big_scene(path: &Path, seed: u64) {
+    let small = render_scene(seed, 99, 1000, 750);
+    let mut big = vec![0u8; 4000 * 3000 * 3];
+    for (i, px) in big.chunks_exact_mut(3).enumerate() {
+        let (x, y) = ((i % 4000) / 4, (i / 4000) / 4);
+        px.copy_from_slice(&small.rgb[(y * 1000 + x) * 3..(y * 1000 + x) * 3 + 3]);
+    }
+    grove::imageio::write_rgb_png(path, 4000, 3000, &big).unwrap();
+}
+
 /// The class table as the page is given it (names and colours in key order).
 fn page_classes(table: &ClassTable) -> Vec<Value> {
     table
@@ -113,15 +125,7 @@ fn prepare(data: &Path) -> Value {
             .unwrap();
         plan.push(json!({"image": name, "strokes": strokes_inside(&s.labels, 256, 256, &table)}));
     }
-    // 4000 × 3000 for the zoom / pan / brush timings: a 1000 × 750 scene enlarged 4× (a
-    // full-size render would take most of the test's time budget).
-    let small = render_scene(5, 99, 1000, 750);
-    let mut big = vec![0u8; 4000 * 3000 * 3];
-    for (i, px) in big.chunks_exact_mut(3).enumerate() {
-        let (x, y) = ((i % 4000) / 4, (i / 4000) / 4);
-        px.copy_from_slice(&small.rgb[(y * 1000 + x) * 3..(y * 1000 + x) * 3 + 3]);
-    }
-    grove::imageio::write_rgb_png(&images.join("big_field.png"), 4000, 3000, &big).unwrap();
+    write_big_scene(&images.join("big_field.png"), 5);
     // An image whose name is markup: the page must show it as text.
     std::fs::copy(
         images.join("farm_06.png"),
@@ -289,14 +293,8 @@ fn measure_workspace() {
         .unwrap();
         plan.push(json!({"image": name, "strokes": strokes_inside(&s.labels, 384, 384, &table)}));
     }
-    let small = render_scene(7, 99, 1000, 750);
-    let mut big = vec![0u8; 4000 * 3000 * 3];
-    for (i, px) in big.chunks_exact_mut(3).enumerate() {
-        let (x, y) = ((i % 4000) / 4, (i / 4000) / 4);
-        px.copy_from_slice(&small.rgb[(y * 1000 + x) * 3..(y * 1000 + x) * 3 + 3]);
-    }
     let big_path = t.path().join("big_field.png");
-    grove::imageio::write_rgb_png(&big_path, 4000, 3000, &big).unwrap();
+    write_big_scene(&big_path, 7);
     // 2. Twenty labelled demo images, trained by the page and by the command.
     let full = t.path().join("demo20");
     grove::demo::write_demo_dataset(&full, 0..20, 384, 7).unwrap();

@@ -133,6 +133,8 @@ const ranks = await page.$$eval('#image-list li', (lis) => lis.map((li) => [li.d
 check(ranks.every(([, r]) => /^suggested #\d+ of \d+$/.test(r || '')), `every image shows its rank: ${JSON.stringify(ranks)}`);
 const firstBars = await page.locator(`#image-list li[data-name="${plan.images[0].image}"] .bars`).getAttribute('title');
 check(/^labelled pixels: .+ \d/.test(firstBars), `labelled pixels per class in the list: ${firstBars}`);
+const smoothing = page.locator('#scores .smoothing');
+check(/^smoothing default: (expansion|none)/.test(await smoothing.textContent()) && /\(/.test(await smoothing.getAttribute('title')), 'smoothing choice stated, with its reason on hover');
 log('ranked', ranks.length, 'images');
 await shot('workspace-2-trained');
 // The regions `grove suggest` ranks highest: a layer of boxes, and the button jumps to them

@@ -856,8 +856,8 @@ function renderModel() {
   box.appendChild(t);
   box.dataset.kind = sc.kind || '';
   if (sc.caveat) box.appendChild(el('p', { class: 'caveat', text: sc.caveat }));
-  // The first line of `grove train`'s statement; the per-strength scores on hover.
-  if (S.smoothing) box.appendChild(el('p', { class: 'hint smoothing', text: `smoothing default: ${S.smoothing.split('\n')[0]}`, title: S.smoothing }));
+  // `grove train`'s statement: the choice shown, the why and the per-strength scores on hover.
+  if (S.smoothing) box.appendChild(el('p', { class: 'hint smoothing', text: `smoothing default: ${S.smoothing.split(' (')[0]}`, title: S.smoothing }));
 }
 
 async function loadLayers() {

@@ -7,11 +7,12 @@
 //    `grove label`. The strokes are scripted, so this is the machine's share of a user's
 //    first minute plus scripted painting, not a person's painting speed.
 // 2. The brush on BIG.png (4000 × 3000): stroke handler and frame times, in ms.
-// 3. `grove label DEMO20` (20 labelled demo images) → Train → model shown: seconds from the
-//    click; the server's own training seconds beside it.
+// 3. `grove label DEMO20` (20 labelled demo images) → Train → model shown, seconds from the
+//    click, twice, alternating with `grove train DEMO20` three times.
 // Writes OUTDIR/measure.json.
 import { copyFileSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
+import { spawnSync } from 'node:child_process';
 import { launch, startServer, workspaceActions } from './lib.mjs';
 
 const [grove, fresh, planPath, bigPath, demo20, out] = process.argv.slice(2);
@@ -28,6 +29,8 @@ const trained = (timeout) => page.waitForFunction(() => /trained on/.test(docume
 // 1. From `grove label` to the first prediction.
 const t0 = Date.now();
 let server = startServer(grove, fresh);
+// A failed check must not leave the server running.
+process.on('exit', () => { if (server.p.exitCode === null) server.p.kill(); });
 await page.goto(await server.url);
 await page.waitForSelector('#image-list li');
 for (const c of plan.classes) await ws.addClass(c);
@@ -70,21 +73,38 @@ await ws.saved();
 server.p.kill();
 await new Promise((r) => server.p.once('exit', r));
 
-// 3. Training 20 labelled demo images from the page.
-server = startServer(grove, demo20);
-await page.goto(await server.url);
-await page.waitForSelector('#image-list li');
-const c0 = Date.now();
-await page.click('#train');
-await trained(600000);
-const pageTrain = (Date.now() - c0) / 1000;
-const serverTrain = await page.evaluate(() => Number((document.getElementById('train-state').textContent.match(/in ([\d.]+) s/) || [])[1]));
-log(`page train of 20 demo images: ${pageTrain.toFixed(1)} s click → model shown (server ${serverTrain} s)`);
-server.p.kill();
-await new Promise((r) => server.p.once('exit', r));
+// 3. Training 20 labelled demo images: `grove train` and the page alternately (CLI, page,
+// CLI, page, CLI), each alone on the machine (the server is stopped before the command runs,
+// so its cross-validation after a training does not compete).
+function cliTrain() {
+  const c0 = Date.now();
+  const r = spawnSync(grove, ['train', demo20, '--model', join(out, 'cli.grove'), '--quiet', '--force'], { stdio: ['ignore', 'ignore', 'inherit'] });
+  if (r.status !== 0) throw new Error(`grove train failed (${r.status})`);
+  return (Date.now() - c0) / 1000;
+}
+async function pageTrain() {
+  server = startServer(grove, demo20);
+  await page.goto(await server.url);
+  await page.waitForSelector('#image-list li');
+  const c0 = Date.now();
+  await page.click('#train');
+  await page.waitForFunction(() => S.training);
+  await trained(600000);
+  const seconds = (Date.now() - c0) / 1000;
+  server.p.kill();
+  await new Promise((r) => server.p.once('exit', r));
+  return seconds;
+}
+const cli = [cliTrain()];
+const pageRuns = [];
+for (let k = 0; k < 2; k++) {
+  pageRuns.push(await pageTrain());
+  cli.push(cliTrain());
+}
+log(`train of 20 demo images: page ${pageRuns.map((x) => x.toFixed(1)).join(', ')} s (click → model shown); grove train ${cli.map((x) => x.toFixed(1)).join(', ')} s`);
 await ctx.close();
 if (errors.length) throw new Error(`page errors: ${errors.join('; ')}`);
 writeFileSync(join(out, 'measure.json'), JSON.stringify({
   first_prediction_seconds: firstPrediction, painted_seconds: paintedAt, first_train_seconds: firstTrain,
-  brush, page_train_seconds: pageTrain, page_train_server_seconds: serverTrain,
+  brush, page_train_seconds: pageRuns, cli_train_seconds: cli,
 }, null, 1));

@@ -18,6 +18,8 @@ function check(ok, what) { if (!ok) throw new Error(`check failed: ${what}`); }
 
 const problems = [];
 let server = startServer(grove, data);
+// A failed check must not leave the server running.
+process.on('exit', () => { if (server.p.exitCode === null) server.p.kill(); });
 let url = await server.url;
 const ctx = await launch({ width: 1180, height: 860 });
 const page = ctx.pages()[0] || await ctx.newPage();
@@ -171,6 +173,8 @@ await page.keyboard.press('f');
 for (const s of plan.images[3].strokes) await paintStroke(s);
 await saved();
 await dumpLabels(plan.images[3].image);
+// The regions were computed without these strokes: marked stale until the next training.
+check(await page.evaluate(() => document.querySelector('#layer-regions').closest('li').classList.contains('stale') && /predate/.test($('layer-list').textContent)), 'suggested regions marked stale after new strokes');
 await shot('workspace-4-correct');
 await page.click('#train');
 await page.waitForFunction(() => S.training);

@@ -544,6 +544,7 @@ function changed() {
   setSaveState('unsaved');
   scheduleSave();
   renderClasses();
+  if (S.layers.gen != null && S.layers.edits === im.edits - 1) renderLayers(); // regions now stale
 }
 
 view.addEventListener('contextmenu', (e) => e.preventDefault());

@@ -232,6 +232,7 @@ async function openImage(name) {
     say('the labels of this image are not saved yet; try again in a moment');
     return;
   }
+  say('');
   const info = await apiJson(`/api/images/${enc(name)}`);
   const r = await api(`/api/labels/${enc(name)}`);
   if (!r.ok) {

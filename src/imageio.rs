@@ -92,9 +92,9 @@ pub fn has_image_extension(path: &Path) -> bool {
         .unwrap_or(false)
 }
 
-/// Reads an input file's bytes after checking that it is a regular file (not a folder or a
-/// device such as `/dev/zero`, which would be read forever).
-pub fn read_input_file(path: &Path) -> Result<Vec<u8>> {
+/// Checks that `path` is a regular file (not a folder or a device such as `/dev/zero`, which
+/// would be read forever) and returns its length in bytes.
+fn check_input_file(path: &Path) -> Result<u64> {
     let meta = std::fs::metadata(path).map_err(|e| GroveError::io(path, e))?;
     if meta.is_dir() {
         return Err(GroveError::input(
@@ -108,15 +108,24 @@ pub fn read_input_file(path: &Path) -> Result<Vec<u8>> {
             "is not a regular file (a device or pipe?); pass an image file",
         ));
     }
+    Ok(meta.len())
+}
+
+/// Reads an input file's bytes after [`check_input_file`].
+pub fn read_input_file(path: &Path) -> Result<Vec<u8>> {
+    check_input_file(path)?;
     std::fs::read(path).map_err(|e| GroveError::io(path, e))
 }
 
-/// A decoder for the image in `bytes`, its format recognised from the content.
-fn decoder_for<'a>(
+/// A decoder for the image `source` holds (`len` bytes), its format recognised from the
+/// content. Generic over the source so a header can be probed from the file without reading
+/// all of it.
+fn decoder_for<'a, R: std::io::BufRead + std::io::Seek + 'a>(
     path: &Path,
-    bytes: &'a [u8],
+    source: R,
+    len: usize,
 ) -> Result<(image::ImageFormat, impl image::ImageDecoder + 'a)> {
-    let mut reader = image::ImageReader::new(Cursor::new(bytes));
+    let mut reader = image::ImageReader::new(source);
     // grove's own limit (`image_check::max_pixels`, checked on the header) replaces the
     // decoder's fixed 512 MiB one, whose "Memory limit exceeded" gives no size.
     reader.no_limits();
@@ -126,7 +135,7 @@ fn decoder_for<'a>(
     let Some(format) = reader.format() else {
         return Err(GroveError::input(
             path,
-            if bytes.is_empty() {
+            if len == 0 {
                 "the file is empty (0 bytes)"
             } else {
                 "not a PNG, JPEG or TIFF image (its content is not recognised; is the file misnamed or damaged?)"
@@ -135,7 +144,7 @@ fn decoder_for<'a>(
     };
     let decoder = reader
         .into_decoder()
-        .map_err(|e| GroveError::input(path, describe_decode_error(&e, bytes.len())))?;
+        .map_err(|e| GroveError::input(path, describe_decode_error(&e, len)))?;
     Ok((format, decoder))
 }
 
@@ -144,7 +153,7 @@ fn decoder_for<'a>(
 fn decode(path: &Path) -> Result<DynamicImage> {
     use image::ImageDecoder;
     let bytes = read_input_file(path)?;
-    let (format, decoder) = decoder_for(path, &bytes)?;
+    let (format, decoder) = decoder_for(path, Cursor::new(&bytes), bytes.len())?;
     let (w, h) = decoder.dimensions();
     check_size(path, w as u64, h as u64)?;
     if format == image::ImageFormat::Jpeg {
@@ -167,8 +176,10 @@ pub struct ImageHeader {
 /// colour mode before any pixel is decoded).
 pub fn probe_image(path: &Path) -> Result<ImageHeader> {
     use image::ImageDecoder;
-    let bytes = read_input_file(path)?;
-    let (_, decoder) = decoder_for(path, &bytes)?;
+    // Only the header is read: probing a multi-gigabyte image must not load it.
+    let len = check_input_file(path)?;
+    let file = std::fs::File::open(path).map_err(|e| GroveError::io(path, e))?;
+    let (_, decoder) = decoder_for(path, std::io::BufReader::new(file), len as usize)?;
     let (w, h) = decoder.dimensions();
     check_size(path, w as u64, h as u64)?;
     Ok(ImageHeader {

@@ -7,7 +7,7 @@ use clap::Args;
 
 use crate::cli::{check_strength, open_dataset, LabelArgs};
 use crate::error::Result;
-use crate::eval::smoothing_strength::{choose_strength, StrengthChoice, SEARCH_TREES};
+use crate::eval::smoothing_strength::{choose_strength_reusing, StrengthChoice, SEARCH_TREES};
 use crate::prediction::SmoothDefault;
 use crate::progress::Progress;
 use crate::segmenter::TrainConfig;
@@ -117,13 +117,14 @@ pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
     crate::output_guard::OutputGuard::new(ds.files(), args.force).check_file(&args.model)?;
     let entries = ds.labelled();
     // The real model first: its checks of the dataset give the clearest messages, and the
-    // strength search below trains on a subset that may fail for reasons of its own.
-    let mut model = config.fit(&ds, &entries, progress)?;
+    // strength search below trains on a subset that may fail for reasons of its own. It
+    // reuses the fit's feature rows.
+    let (mut model, rows) = config.fit_keeping_rows(&ds, &entries, progress)?;
     let method = args.options.smooth.unwrap_or(SmoothMethod::Expansion);
     let (smoothing, choice) = match (args.options.smooth, args.options.smooth_strength) {
         (Some(SmoothMethod::None), _) => (SmoothDefault::NONE, None),
         (_, Some(strength)) => (SmoothDefault { method, strength }, None),
-        _ => match choose_strength(&config, &ds, &entries, method, progress) {
+        _ => match choose_strength_reusing(&model, &rows, &ds, &entries, method, progress) {
             Ok(Some(c)) => (c.default(), Some(c)),
             Ok(None) => (SmoothDefault::library(), None),
             Err(e) => {
@@ -132,6 +133,7 @@ pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
             }
         },
     };
+    drop(rows);
     model.smoothing = smoothing;
     crate::model::save(&model, &args.model)?;
     let p = &model.provenance;

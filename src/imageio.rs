@@ -13,8 +13,13 @@ use image::DynamicImage;
 use crate::error::{GroveError, Result};
 use crate::image_check::{check_jpeg_complete, check_size, describe_decode_error, size_problem};
 
+pub mod maps;
+pub mod npy;
 pub mod stream;
 pub mod stream_out;
+pub mod tiff_labels;
+pub mod tiff_out;
+pub mod tiff_tags;
 use crate::plane::Plane;
 
 /// An input image as sRGB-encoded planes in [0, 1]: one plane (grey) or three (R, G, B).
@@ -258,6 +263,40 @@ pub struct LabelFile {
     pub width: usize,
     pub height: usize,
     pub pixels: LabelPixels,
+}
+
+/// Reads a label file, PNG or TIFF (recognised from its content), without colour expansion:
+/// palette images yield their indices.
+pub fn read_label_file(path: &Path) -> Result<LabelFile> {
+    let bytes = read_input_file(path)?;
+    if tiff_labels::is_tiff(&bytes) {
+        tiff_labels::decode_label_tiff(&bytes).map_err(|m| GroveError::input(path, m))
+    } else {
+        decode_label_png(&bytes).map_err(|m| GroveError::input(path, m))
+    }
+}
+
+/// Width and height of a label file (PNG or TIFF) from its header, without decoding.
+pub fn probe_label_file(path: &Path) -> Result<(usize, usize)> {
+    let head = read_head(path, 4)?;
+    if tiff_labels::is_tiff(&head) {
+        let file = std::fs::File::open(path).map_err(|e| GroveError::io(path, e))?;
+        tiff_labels::probe_label_tiff(std::io::BufReader::new(file))
+            .map_err(|m| GroveError::input(path, m))
+    } else {
+        probe_label_png(path)
+    }
+}
+
+/// The first `n` bytes of a file (fewer when it is shorter).
+fn read_head(path: &Path, n: usize) -> Result<Vec<u8>> {
+    use std::io::Read;
+    let f = std::fs::File::open(path).map_err(|e| GroveError::io(path, e))?;
+    let mut head = Vec::with_capacity(n);
+    f.take(n as u64)
+        .read_to_end(&mut head)
+        .map_err(|e| GroveError::io(path, e))?;
+    Ok(head)
 }
 
 /// Reads a label PNG without colour expansion: a palette-indexed PNG yields its indices

@@ -1,10 +1,11 @@
-//! What `apply` delivers per image: a label PNG (palette = class colours, pixel value =
+//! What `apply` delivers per image: a label map (palette = class colours, pixel value =
 //! class id, so it can be corrected and fed back as training labels), a colour overlay on
 //! the image, and on request a confidence map and per-class probability maps.
 //!
-//! Layout under the output folder: `labels/STEM.png`, `overlays/STEM.png`,
-//! `confidence/STEM.png`, `uncertainty/{margin,entropy}/STEM.png`,
-//! `probabilities/STEM/CLASS.png`.
+//! Layout under the output folder (EXT = png, or tif with `--map-format tiff`):
+//! `labels/STEM.EXT`, `overlays/STEM.EXT`, `confidence/STEM.EXT`,
+//! `uncertainty/{margin,entropy}/STEM.EXT`, `probabilities/STEM/CLASS.EXT` or, with
+//! `--probabilities npy`, `probabilities/STEM.npy` (float32, height × width × classes).
 
 pub mod stream;
 
@@ -12,8 +13,37 @@ use std::path::{Path, PathBuf};
 
 use crate::dataset::ClassTable;
 use crate::error::Result;
-use crate::imageio::{output_path, write_grey_png, write_label_png, write_rgb_png, RasterImage};
+use crate::imageio::maps::{write_map, MapFormat, MapKind, MapStyle};
+use crate::imageio::tiff_out::TiffFlavour;
+use crate::imageio::tiff_tags::TiffTag;
+use crate::imageio::{output_path, RasterImage};
 use crate::prediction::Prediction;
+
+/// How per-class probabilities are written (`--probabilities png|npy`).
+#[derive(
+    Clone,
+    Copy,
+    Debug,
+    Default,
+    PartialEq,
+    Eq,
+    clap::ValueEnum,
+    serde::Serialize,
+    serde::Deserialize,
+)]
+#[serde(rename_all = "lowercase")]
+pub enum ProbabilityFormat {
+    /// One 8-bit map per class (probability × 255) under probabilities/NAME/, in --map-format.
+    #[default]
+    Png,
+    /// probabilities/NAME.npy: float32, height × width × classes in class-table order
+    /// (numpy.load).
+    Npy,
+}
+
+fn is_default<T: Default + PartialEq>(v: &T) -> bool {
+    *v == T::default()
+}
 
 /// Which optional outputs to write (serialised into batch resume records).
 #[derive(Clone, Debug, serde::Serialize)]
@@ -28,6 +58,16 @@ pub struct OutputOptions {
     /// Class indices left untinted in overlays (`--no-tint`), sorted: a black background
     /// class tinted grey would hide nothing but dim the image.
     pub untinted: Vec<u8>,
+    /// Format of the probabilities when `probabilities` is on. Left out of the resume
+    /// records at its default, so records of earlier runs still match.
+    #[serde(skip_serializing_if = "is_default")]
+    pub probability_format: ProbabilityFormat,
+    /// File format of every map (labels, overlays, confidence, uncertainty, probabilities).
+    #[serde(skip_serializing_if = "is_default")]
+    pub map_format: MapFormat,
+    /// TIFF maps as BigTIFF even when they would fit a standard TIFF.
+    #[serde(skip_serializing_if = "is_default")]
+    pub bigtiff: bool,
 }
 
 impl OutputOptions {
@@ -54,6 +94,9 @@ impl Default for OutputOptions {
             uncertainty: false,
             overlay_opacity: 0.45,
             untinted: Vec::new(),
+            probability_format: ProbabilityFormat::Png,
+            map_format: MapFormat::Png,
+            bigtiff: false,
         }
     }
 }
@@ -94,13 +137,14 @@ pub struct OutputPaths {
     pub confidence: Option<PathBuf>,
     /// Margin and entropy maps.
     pub uncertainty: Option<[PathBuf; 2]>,
-    /// One per class, in class-table order.
+    /// One per class, in class-table order (PNG/TIFF maps), or one `.npy` for all classes.
     pub probabilities: Vec<PathBuf>,
 }
 
 impl OutputPaths {
     pub fn new(out_dir: &Path, stem: &str, classes: &ClassTable, opts: &OutputOptions) -> Self {
-        let in_sub = |sub: &str| output_path(&out_dir.join(sub), stem, "png");
+        let ext = opts.map_format.extension();
+        let in_sub = |sub: &str| output_path(&out_dir.join(sub), stem, ext);
         let prob_dir = out_dir
             .join("probabilities")
             .join(crate::output_guard::safe_file_name(stem));
@@ -111,14 +155,16 @@ impl OutputPaths {
             uncertainty: opts
                 .uncertainty
                 .then(|| [in_sub("uncertainty/margin"), in_sub("uncertainty/entropy")]),
-            probabilities: if opts.probabilities {
-                classes
+            probabilities: match (opts.probabilities, opts.probability_format) {
+                (false, _) => Vec::new(),
+                (true, ProbabilityFormat::Npy) => {
+                    vec![output_path(&out_dir.join("probabilities"), stem, "npy")]
+                }
+                (true, ProbabilityFormat::Png) => classes
                     .classes()
                     .iter()
-                    .map(|c| output_path(&prob_dir, &c.name, "png"))
-                    .collect()
-            } else {
-                Vec::new()
+                    .map(|c| output_path(&prob_dir, &c.name, ext))
+                    .collect(),
             },
         }
     }
@@ -142,8 +188,31 @@ pub struct WrittenOutputs {
     pub files: Vec<PathBuf>,
 }
 
-/// Writes the outputs for one image: maps of `prediction.labels`, confidence, uncertainty
-/// and probability maps of `prediction.probabilities` (smoothed ones after mean-field).
+/// The tags an input passes on to its TIFF maps (none for PNG maps or non-TIFF inputs).
+pub fn pass_through_tags(source: &Path, opts: &OutputOptions) -> Result<Vec<TiffTag>> {
+    match opts.map_format {
+        MapFormat::Png => Ok(Vec::new()),
+        MapFormat::Tiff => crate::imageio::tiff_tags::read_pass_through_tags(source),
+    }
+}
+
+impl OutputOptions {
+    /// How this image's maps are written; `tags` from [`pass_through_tags`].
+    pub fn map_style<'a>(&self, tags: &'a [TiffTag]) -> MapStyle<'a> {
+        MapStyle {
+            format: self.map_format,
+            tags,
+            flavour: if self.bigtiff {
+                TiffFlavour::Big
+            } else {
+                TiffFlavour::Auto
+            },
+        }
+    }
+}
+
+/// Writes the outputs for one image (maps without pass-through tags): see
+/// [`write_outputs_tagged`].
 pub fn write_outputs(
     out_dir: &Path,
     stem: &str,
@@ -152,33 +221,60 @@ pub fn write_outputs(
     classes: &ClassTable,
     opts: &OutputOptions,
 ) -> Result<WrittenOutputs> {
+    write_outputs_tagged(out_dir, stem, image, prediction, classes, opts, &[])
+}
+
+/// Writes the outputs for one image: maps of `prediction.labels`, confidence, uncertainty
+/// and probability maps of `prediction.probabilities` (smoothed ones after mean-field);
+/// TIFF maps carry `tags` (the input's, see [`pass_through_tags`]).
+pub fn write_outputs_tagged(
+    out_dir: &Path,
+    stem: &str,
+    image: &RasterImage,
+    prediction: &Prediction,
+    classes: &ClassTable,
+    opts: &OutputOptions,
+    tags: &[TiffTag],
+) -> Result<WrittenOutputs> {
     let probs = &prediction.probabilities;
-    let (w, h) = (probs.width, probs.height);
+    let size = (probs.width, probs.height);
     let index = prediction.labels.clone();
     let ids: Vec<u8> = index
         .iter()
         .map(|&c| classes.classes()[c as usize].id)
         .collect();
     let paths = OutputPaths::new(out_dir, stem, classes, opts);
-    write_label_png(&paths.labels, w, h, &ids, &classes.palette())?;
+    let style = opts.map_style(tags);
+    let palette = classes.palette();
+    write_map(&paths.labels, size, MapKind::Labels(&palette), &style, &ids)?;
     if let Some(path) = &paths.overlay {
         let rgb = overlay(image, &index, classes, &opts.tint(classes.len()));
-        write_rgb_png(path, w, h, &rgb)?;
+        write_map(path, size, MapKind::Rgb, &style, &rgb)?;
     }
     if let Some(path) = &paths.confidence {
         let conf: Vec<u8> = probs.confidence().into_iter().map(to_u8).collect();
-        write_grey_png(path, w, h, &conf)?;
+        write_map(path, size, MapKind::Grey, &style, &conf)?;
     }
     if let Some([margin, entropy]) = &paths.uncertainty {
         let maps = crate::eval::uncertainty::UncertaintyMaps::new(probs);
         for (path, map) in [(margin, &maps.margin), (entropy, &maps.entropy)] {
             let bytes: Vec<u8> = map.iter().map(|&v| to_u8(v)).collect();
-            write_grey_png(path, w, h, &bytes)?;
+            write_map(path, size, MapKind::Grey, &style, &bytes)?;
         }
     }
-    for (c, path) in paths.probabilities.iter().enumerate() {
-        let p: Vec<u8> = probs.class_plane(c).data.into_iter().map(to_u8).collect();
-        write_grey_png(path, w, h, &p)?;
+    match opts.probability_format {
+        ProbabilityFormat::Npy => {
+            if let Some(path) = paths.probabilities.first() {
+                let shape = [probs.height, probs.width, probs.n_classes];
+                crate::imageio::npy::write_npy_f32(path, &shape, &probs.data)?;
+            }
+        }
+        ProbabilityFormat::Png => {
+            for (c, path) in paths.probabilities.iter().enumerate() {
+                let p: Vec<u8> = probs.class_plane(c).data.into_iter().map(to_u8).collect();
+                write_map(path, size, MapKind::Grey, &style, &p)?;
+            }
+        }
     }
     Ok(WrittenOutputs {
         index,

@@ -13,7 +13,6 @@ use image::DynamicImage;
 use crate::error::{GroveError, Result};
 use crate::image_check::{check_jpeg_complete, check_size, describe_decode_error, size_problem};
 
-pub mod maps;
 pub mod npy;
 pub mod stream;
 pub mod stream_out;

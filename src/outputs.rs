@@ -13,13 +13,12 @@ use std::path::{Path, PathBuf};
 
 use crate::dataset::ClassTable;
 use crate::error::Result;
-use crate::imageio::maps::{write_map, MapFormat, MapKind, MapStyle};
-use crate::imageio::tiff_out::TiffFlavour;
 use crate::imageio::tiff_tags::TiffTag;
 use crate::imageio::{output_path, RasterImage};
 use crate::prediction::Prediction;
+pub use stream::MapFormat;
 
-/// How per-class probabilities are written (`--probabilities png|npy`).
+/// How per-class probabilities are written (`--probabilities maps|npy`).
 #[derive(
     Clone,
     Copy,
@@ -33,9 +32,11 @@ use crate::prediction::Prediction;
 )]
 #[serde(rename_all = "lowercase")]
 pub enum ProbabilityFormat {
-    /// One 8-bit map per class (probability × 255) under probabilities/NAME/, in --map-format.
+    /// One 8-bit map per class (probability × 255) under probabilities/NAME/, in the
+    /// --map-format (png or tiff).
     #[default]
-    Png,
+    #[value(alias = "png", alias = "tiff")]
+    Maps,
     /// probabilities/NAME.npy: float32, height × width × classes in class-table order
     /// (numpy.load).
     Npy,
@@ -94,7 +95,7 @@ impl Default for OutputOptions {
             uncertainty: false,
             overlay_opacity: 0.45,
             untinted: Vec::new(),
-            probability_format: ProbabilityFormat::Png,
+            probability_format: ProbabilityFormat::Maps,
             map_format: MapFormat::Png,
             bigtiff: false,
         }
@@ -160,7 +161,7 @@ impl OutputPaths {
                 (true, ProbabilityFormat::Npy) => {
                     vec![output_path(&out_dir.join("probabilities"), stem, "npy")]
                 }
-                (true, ProbabilityFormat::Png) => classes
+                (true, ProbabilityFormat::Maps) => classes
                     .classes()
                     .iter()
                     .map(|c| output_path(&prob_dir, &c.name, ext))
@@ -196,38 +197,11 @@ pub fn pass_through_tags(source: &Path, opts: &OutputOptions) -> Result<Vec<Tiff
     }
 }
 
-impl OutputOptions {
-    /// How this image's maps are written; `tags` from [`pass_through_tags`].
-    pub fn map_style<'a>(&self, tags: &'a [TiffTag]) -> MapStyle<'a> {
-        MapStyle {
-            format: self.map_format,
-            tags,
-            flavour: if self.bigtiff {
-                TiffFlavour::Big
-            } else {
-                TiffFlavour::Auto
-            },
-        }
-    }
-}
-
-/// Writes the outputs for one image (maps without pass-through tags): see
-/// [`write_outputs_tagged`].
-pub fn write_outputs(
-    out_dir: &Path,
-    stem: &str,
-    image: &RasterImage,
-    prediction: &Prediction,
-    classes: &ClassTable,
-    opts: &OutputOptions,
-) -> Result<WrittenOutputs> {
-    write_outputs_tagged(out_dir, stem, image, prediction, classes, opts, &[])
-}
-
 /// Writes the outputs for one image: maps of `prediction.labels`, confidence, uncertainty
-/// and probability maps of `prediction.probabilities` (smoothed ones after mean-field);
+/// and probability maps of `prediction.probabilities` (smoothed ones after mean-field),
+/// through the same writers as an image streamed band by band ([`stream::MapWriters`]);
 /// TIFF maps carry `tags` (the input's, see [`pass_through_tags`]).
-pub fn write_outputs_tagged(
+pub fn write_outputs(
     out_dir: &Path,
     stem: &str,
     image: &RasterImage,
@@ -238,46 +212,10 @@ pub fn write_outputs_tagged(
 ) -> Result<WrittenOutputs> {
     let probs = &prediction.probabilities;
     let size = (probs.width, probs.height);
-    let index = prediction.labels.clone();
-    let ids: Vec<u8> = index
-        .iter()
-        .map(|&c| classes.classes()[c as usize].id)
-        .collect();
-    let paths = OutputPaths::new(out_dir, stem, classes, opts);
-    let style = opts.map_style(tags);
-    let palette = classes.palette();
-    write_map(&paths.labels, size, MapKind::Labels(&palette), &style, &ids)?;
-    if let Some(path) = &paths.overlay {
-        let rgb = overlay(image, &index, classes, &opts.tint(classes.len()));
-        write_map(path, size, MapKind::Rgb, &style, &rgb)?;
-    }
-    if let Some(path) = &paths.confidence {
-        let conf: Vec<u8> = probs.confidence().into_iter().map(to_u8).collect();
-        write_map(path, size, MapKind::Grey, &style, &conf)?;
-    }
-    if let Some([margin, entropy]) = &paths.uncertainty {
-        let maps = crate::eval::uncertainty::UncertaintyMaps::new(probs);
-        for (path, map) in [(margin, &maps.margin), (entropy, &maps.entropy)] {
-            let bytes: Vec<u8> = map.iter().map(|&v| to_u8(v)).collect();
-            write_map(path, size, MapKind::Grey, &style, &bytes)?;
-        }
-    }
-    match opts.probability_format {
-        ProbabilityFormat::Npy => {
-            if let Some(path) = paths.probabilities.first() {
-                let shape = [probs.height, probs.width, probs.n_classes];
-                crate::imageio::npy::write_npy_f32(path, &shape, &probs.data)?;
-            }
-        }
-        ProbabilityFormat::Png => {
-            for (c, path) in paths.probabilities.iter().enumerate() {
-                let p: Vec<u8> = probs.class_plane(c).data.into_iter().map(to_u8).collect();
-                write_map(path, size, MapKind::Grey, &style, &p)?;
-            }
-        }
-    }
+    let mut writers = stream::MapWriters::create(out_dir, stem, size, classes, opts, tags)?;
+    writers.write_band(image, prediction)?;
     Ok(WrittenOutputs {
-        index,
-        files: paths.all().into_iter().map(Path::to_path_buf).collect(),
+        index: prediction.labels.clone(),
+        files: writers.finish()?,
     })
 }

@@ -165,59 +165,6 @@ fn tiled_grey_model_is_bit_identical() {
     assert_bit_identical(&model, &rgb8(97, 113, 31), &[33], "RGB into grey model");
 }
 
-/// `apply`'s streaming path (read by rows, predict band by band, write by rows) writes the
-/// same pixels as the whole-image path, from PNG and from TIFF input.
-#[test]
-fn streamed_outputs_equal_whole_image_outputs() {
-    use grove::outputs::stream::apply_streaming;
-    use grove::outputs::{write_outputs, OutputOptions};
-    let model = rgb_model();
-    let t = tempfile::tempdir().unwrap();
-    let (w, h) = (203usize, 149usize);
-    let s = render_scene(5, 40, w, h);
-    let opts = OutputOptions {
-        confidence: true,
-        probabilities: true,
-        ..OutputOptions::default()
-    };
-    for ext in ["png", "tif"] {
-        let path = t.path().join(format!("big.{ext}"));
-        image::RgbImage::from_raw(w as u32, h as u32, s.rgb.clone())
-            .unwrap()
-            .save(&path)
-            .unwrap();
-        let img = grove::imageio::read_image(&path).unwrap();
-        let whole_dir = t.path().join(format!("whole-{ext}"));
-        let probs = model.predict_proba(&img);
-        let pred = probs.into();
-        write_outputs(&whole_dir, "big", &img, &pred, &model.classes, &opts).unwrap();
-        let stream_dir = t.path().join(format!("stream-{ext}"));
-        let done = apply_streaming(&model, &path, &stream_dir, "big", 64, &opts, |_, _| {
-            Ok(None)
-        })
-        .unwrap();
-        assert_eq!(done.counts.iter().sum::<u64>(), (w * h) as u64);
-        for sub in ["labels/big.png", "overlays/big.png", "confidence/big.png"] {
-            let a = image::open(whole_dir.join(sub)).unwrap();
-            let b = image::open(stream_dir.join(sub)).unwrap();
-            assert_eq!(a.as_bytes(), b.as_bytes(), "{ext}: {sub}");
-        }
-        let a = grove::imageio::read_label_png(&whole_dir.join("labels/big.png")).unwrap();
-        let b = grove::imageio::read_label_png(&stream_dir.join("labels/big.png")).unwrap();
-        match (a.pixels, b.pixels) {
-            (grove::imageio::LabelPixels::Values(a), grove::imageio::LabelPixels::Values(b)) => {
-                assert_eq!(a, b)
-            }
-            _ => panic!("label maps are palette PNGs"),
-        }
-        let name = &model.classes.classes()[0].name;
-        let p = format!("probabilities/big/{name}.png");
-        let a = image::open(whole_dir.join(&p)).unwrap();
-        let b = image::open(stream_dir.join(&p)).unwrap();
-        assert_eq!(a.as_bytes(), b.as_bytes(), "{ext}: {p}");
-    }
-}
-
 /// Smoothing tile by tile with a halo (`smooth::tiles`) against whole-image smoothing: the
 /// share of labels that differ (issue #7 asks for < 0.1 %). An approximation by design (the
 /// CRF couples all pixels), so this measures it on a demo scene and bounds it.

@@ -37,6 +37,10 @@ pub struct ImageRecord {
     pub seconds: f64,
     /// `K/N` when run with `--shard`.
     pub shard: Option<String>,
+    /// Read, predicted and written band by band (a large image, see `batch::streamed`)
+    /// rather than whole; the outputs are the same either way.
+    #[serde(default)]
+    pub streamed: bool,
     /// SHA-256 of the model file that made the outputs.
     pub model_sha256: String,
     /// The output settings (which maps, overlay opacity, ...).
@@ -117,6 +121,7 @@ impl Records {
             class_pixels,
             seconds,
             shard,
+            streamed: false,
             model_sha256: self.model_sha256.clone(),
             options: self.options.clone(),
         }

@@ -3,7 +3,9 @@
 //! class areas of every image (from the records for the skipped ones).
 //!
 //! Encoding the PNGs of one image overlaps the decoding and prediction of the next: PNG
-//! coding is single-threaded, prediction uses every core.
+//! coding is single-threaded, prediction uses every core. Images above
+//! [`stream_above_pixels`] are streamed instead when tiling is on ([`super::streamed`]): never
+//! decoded whole, written band by band, with the same files, counts and records.
 
 use std::collections::HashMap;
 use std::path::PathBuf;
@@ -12,11 +14,14 @@ use std::time::Instant;
 
 use crate::batch::record::{ImageRecord, Records};
 use crate::batch::shard::Shard;
+use crate::batch::streamed::{segment_streamed, stream_above_pixels, Streamed};
 use crate::dataset::stem_of;
 use crate::error::Result;
 use crate::eval::areas::{count_classes, AreaTable, RoiMasks};
+use crate::imageio::stream::{open_streamable, RowSource};
+use crate::imageio::tiff_tags::TiffTag;
 use crate::imageio::{read_image, RasterImage};
-use crate::outputs::{write_outputs, OutputOptions};
+use crate::outputs::{pass_through_tags, write_outputs, OutputOptions};
 use crate::prediction::Prediction;
 use crate::segmenter::Segmenter;
 use crate::smooth::SmoothSettings;
@@ -50,6 +55,13 @@ pub enum BatchEvent<'a> {
     Done(&'a ImageRecord),
     /// Something the user should know that does not stop the run.
     Warning(String),
+    /// `rows` of the `height` rows of a streamed image are finished (sent now and then; some
+    /// may be dropped while the writer is busy).
+    Rows {
+        image: &'a std::path::Path,
+        rows: usize,
+        height: usize,
+    },
 }
 
 /// Totals of one run.
@@ -64,11 +76,25 @@ pub struct BatchSummary {
 
 enum Work {
     Warning(String),
+    /// Predicted whole; its maps are still to be written.
     Image {
         path: PathBuf,
         image: RasterImage,
         prediction: Prediction,
+        /// Passed on to TIFF maps.
+        tags: Vec<TiffTag>,
         started: Instant,
+    },
+    /// Streamed: its maps are written, its record is not.
+    Streamed {
+        path: PathBuf,
+        streamed: Streamed,
+        started: Instant,
+    },
+    Rows {
+        path: PathBuf,
+        rows: usize,
+        height: usize,
     },
 }
 
@@ -134,43 +160,64 @@ impl BatchJob<'_> {
             let counts = &mut counts;
             let writer = scope.spawn(move || -> Result<()> {
                 for work in rx {
-                    let (path, image, prediction, started) = match work {
+                    let (path, files, (width, height), class_pixels, started, streamed) = match work
+                    {
                         Work::Warning(w) => {
                             on_event(BatchEvent::Warning(w));
+                            continue;
+                        }
+                        Work::Rows { path, rows, height } => {
+                            on_event(BatchEvent::Rows {
+                                image: &path,
+                                rows,
+                                height,
+                            });
                             continue;
                         }
                         Work::Image {
                             path,
                             image,
                             prediction,
+                            tags,
                             started,
-                        } => (path, image, prediction, started),
+                        } => {
+                            let stem = stem_of(&path);
+                            let written = write_outputs(
+                                &self.out_dir,
+                                &stem,
+                                &image,
+                                &prediction,
+                                &model.classes,
+                                &self.options,
+                                &tags,
+                            )?;
+                            let size = (image.width, image.height);
+                            let mask = match self.roi {
+                                Some(r) => Some(r.mask(&stem, size.0, size.1)?),
+                                None => None,
+                            };
+                            let k = model.classes.len();
+                            let counts = count_classes(&written.index, k, mask.as_deref());
+                            (path, written.files, size, counts, started, false)
+                        }
+                        Work::Streamed {
+                            path,
+                            streamed: s,
+                            started,
+                        } => (path, s.files, (s.width, s.height), s.counts, started, true),
                     };
                     let stem = stem_of(&path);
-                    let written = write_outputs(
-                        &self.out_dir,
-                        &stem,
-                        &image,
-                        &prediction,
-                        &model.classes,
-                        &self.options,
-                    )?;
-                    let mask = match self.roi {
-                        Some(r) => Some(r.mask(&stem, image.width, image.height)?),
-                        None => None,
-                    };
-                    let class_pixels =
-                        count_classes(&written.index, model.classes.len(), mask.as_deref());
-                    let pixels = (image.width * image.height) as u64;
+                    let pixels = (width * height) as u64;
                     let secs = started.elapsed().as_secs_f64();
-                    let rec = records.make(
+                    let mut rec = records.make(
                         &path,
-                        &written.files,
+                        &files,
                         pixels,
                         class_pixels.clone(),
                         secs,
                         shard.clone(),
                     );
+                    rec.streamed = streamed;
                     records.write(&stem, &rec)?;
                     counts.insert(stem, class_pixels);
                     summary.done += 1;
@@ -184,35 +231,27 @@ impl BatchJob<'_> {
             let mut unlike = 0usize;
             for path in todo {
                 let started = Instant::now();
-                let image = match read_image(&path) {
-                    Ok(img) => img,
+                let work = match self.predict(&path, &tx, &mut warned, &mut unlike) {
+                    Ok(Some(w)) => w,
+                    Ok(None) => break, // the writer stopped on an error, which join reports
                     Err(e) => {
                         predicted = Err(e);
                         break;
                     }
                 };
-                if !warned && image.is_grey() != (model.features.channels == 1) {
-                    warned = true;
-                    let w = colour_mismatch(&path, image.is_grey());
-                    if tx.send(Work::Warning(w)).is_err() {
-                        break;
-                    }
-                }
-                let (probs, moments) =
-                    crate::tiling::predict_tiled_moments(model, &image, self.tile);
-                if let Some(w) = unlike_training(model, &path, &image, &moments, &mut unlike) {
-                    if tx.send(Work::Warning(w)).is_err() {
-                        break;
-                    }
-                }
-                let prediction = model
-                    .smooth_all(&image, probs, std::slice::from_ref(&self.smoothing))
-                    .remove(0);
-                let work = Work::Image {
-                    path,
-                    image,
-                    prediction,
-                    started,
+                let work = match work {
+                    Done::Whole(image, prediction, tags) => Work::Image {
+                        path,
+                        image,
+                        prediction,
+                        tags,
+                        started,
+                    },
+                    Done::Streamed(streamed) => Work::Streamed {
+                        path,
+                        streamed,
+                        started,
+                    },
                 };
                 if tx.send(work).is_err() {
                     break; // the writer stopped on an error, which join reports
@@ -233,6 +272,97 @@ impl BatchJob<'_> {
     }
 }
 
+/// One image predicted by the main loop of [`BatchJob::run`].
+enum Done {
+    /// Whole: the maps are for the writer thread to write.
+    Whole(RasterImage, Prediction, Vec<TiffTag>),
+    /// Streamed: maps already written.
+    Streamed(Streamed),
+}
+
+impl BatchJob<'_> {
+    /// The streamed reader of `path` when this image is to be streamed: tiling is on, the
+    /// format can be read in pieces and the image is above [`stream_above_pixels`].
+    fn stream_source(&self, path: &std::path::Path) -> Result<Option<Box<dyn RowSource>>> {
+        // Smoothing couples whole images; it is done on the whole-image path.
+        if self.tile == 0 || self.smoothing.method != crate::smooth::SmoothMethod::None {
+            return Ok(None);
+        }
+        Ok(open_streamable(path)?.filter(|s| s.width() * s.height() > stream_above_pixels()))
+    }
+
+    /// Predicts one image, whole or streamed, sending its warnings and progress to `tx`.
+    /// `Ok(None)`: the writer has stopped.
+    fn predict(
+        &self,
+        path: &std::path::Path,
+        tx: &std::sync::mpsc::SyncSender<Work>,
+        warned: &mut bool,
+        unlike: &mut usize,
+    ) -> Result<Option<Done>> {
+        let model = self.model;
+        // The colour warning comes before the work, which may take minutes.
+        let mut colour = |grey: bool| {
+            if *warned || grey == (model.features.channels == 1) {
+                return true;
+            }
+            *warned = true;
+            tx.send(Work::Warning(colour_mismatch(path, grey))).is_ok()
+        };
+        // Read before the work, so a damaged TIFF directory fails in seconds, not after it.
+        let tags = pass_through_tags(path, &self.options)?;
+        let (done, size, moments) = match self.stream_source(path)? {
+            Some(source) => {
+                if !colour(source.channels() == 1) {
+                    return Ok(None);
+                }
+                let stem = stem_of(path);
+                let (w, h) = (source.width(), source.height());
+                let roi = self.roi.map(|r| r.rows(&stem, w, h)).transpose()?;
+                let on_rows = |rows, height| {
+                    // Progress only: dropped when the writer is busy.
+                    let _ = tx.try_send(Work::Rows {
+                        path: path.to_path_buf(),
+                        rows,
+                        height,
+                    });
+                };
+                let s = segment_streamed(
+                    model,
+                    source,
+                    &self.out_dir,
+                    &stem,
+                    self.tile,
+                    &self.options,
+                    &tags,
+                    roi,
+                    on_rows,
+                )?;
+                let moments = s.moments.clone();
+                (Done::Streamed(s), (w, h), moments)
+            }
+            None => {
+                let image = read_image(path)?;
+                if !colour(image.is_grey()) {
+                    return Ok(None);
+                }
+                let (probs, moments) =
+                    crate::tiling::predict_tiled_moments(model, &image, self.tile);
+                let prediction = model
+                    .smooth_all(&image, probs, std::slice::from_ref(&self.smoothing))
+                    .remove(0);
+                let size = (image.width, image.height);
+                (Done::Whole(image, prediction, tags), size, moments)
+            }
+        };
+        if let Some(w) = unlike_training(model, path, size, &moments, unlike) {
+            if tx.send(Work::Warning(w)).is_err() {
+                return Ok(None);
+            }
+        }
+        Ok(Some(done))
+    }
+}
 /// Images unlike the training images get a warning each, up to [`MAX_UNLIKE_WARNINGS`]
 /// (a night's batch of one new camera should not bury the rest of the output).
 const MAX_UNLIKE_WARNINGS: usize = 20;
@@ -240,12 +370,12 @@ const MAX_UNLIKE_WARNINGS: usize = 20;
 fn unlike_training(
     model: &Segmenter,
     path: &std::path::Path,
-    image: &RasterImage,
+    (width, height): (usize, usize),
     moments: &crate::eval::drift::FeatureMoments,
     count: &mut usize,
 ) -> Option<String> {
     let profile = model.profile.as_ref()?;
-    let why = profile.differences(image.width, image.height, moments, &model.features.names());
+    let why = profile.differences(width, height, moments, &model.features.names());
     if why.is_empty() {
         return None;
     }

@@ -11,7 +11,7 @@ use crate::cli::SmoothArgs;
 use crate::dataset::stem_of;
 use crate::error::{GroveError, Result};
 use crate::eval::areas::{AreaTable, PixelSize, RoiMasks};
-use crate::imageio::maps::MapFormat;
+use crate::outputs::MapFormat;
 use crate::outputs::{OutputOptions, OutputPaths, ProbabilityFormat};
 use crate::progress::Progress;
 
@@ -36,16 +36,20 @@ pub struct ApplyArgs {
     /// bright = unsure).
     #[arg(long)]
     pub uncertainty: bool,
-    /// Also write the class probabilities (bare --probabilities means png). Put it after the
-    /// inputs, or write --probabilities=npy: just before an input it takes that for a format.
+    /// Also write the class probabilities: `maps` (the default when no value is given) = one
+    /// 8-bit map per class in the --map-format; `npy` = one float32 array per image
+    /// (height × width × classes, for numpy.load). Put it after the inputs, or write
+    /// --probabilities=npy: just before an input it takes that for a format.
     #[arg(
         long,
         value_name = "FORMAT",
         num_args = 0..=1,
-        default_missing_value = "png"
+        default_missing_value = "maps"
     )]
     pub probabilities: Option<ProbabilityFormat>,
-    /// File format of the maps (labels, overlays, confidence, uncertainty, probabilities).
+    /// File format of the maps (labels, overlays, confidence, uncertainty, probability maps):
+    /// png, or tiff = tiled, Deflate-compressed TIFF (BigTIFF when it could pass 4 GiB) that
+    /// keeps a TIFF input's resolution and GeoTIFF tags.
     #[arg(long, value_name = "FORMAT", default_value = "png")]
     pub map_format: MapFormat,
     /// With --map-format tiff: write BigTIFF even when a map would fit a standard TIFF.
@@ -78,11 +82,13 @@ pub struct ApplyArgs {
     #[arg(long)]
     pub force: bool,
     /// Predict in tiles of N × N pixels (plus a halo), bounding memory by the tile size;
-    /// 0 = the whole image at once. The result does not depend on it.
+    /// 0 = the whole image at once. The forest's result does not depend on it. With N > 0,
+    /// PNG and TIFF images above 8 megapixels are also streamed: read, predicted and written
+    /// band by band, never held whole.
     #[arg(long, value_name = "N", default_value_t = crate::tiling::DEFAULT_TILE)]
     pub tile: usize,
     /// Print one JSON line per image on stdout (status done/skipped, image, outputs, pixels,
-    /// seconds spent in this run, shard); the summary goes to stderr.
+    /// seconds spent in this run, shard, streamed); the summary goes to stderr.
     #[arg(long)]
     pub log_json: bool,
     #[command(flatten)]
@@ -99,6 +105,8 @@ struct LogLine<'a> {
     pixels: u64,
     seconds: f64,
     shard: Option<&'a str>,
+    /// Read and written band by band rather than whole (large PNG and TIFF images).
+    streamed: bool,
 }
 
 /// `shard` is this run's (a skipped image may have been made under another split), and a
@@ -112,6 +120,7 @@ fn log_json(status: &str, rec: &ImageRecord, shard: Option<Shard>) {
         pixels: rec.pixels,
         seconds: if status == "done" { rec.seconds } else { 0.0 },
         shard: shard.as_deref(),
+        streamed: rec.streamed,
     };
     let mut out = std::io::stdout().lock();
     // A closed pipe ends the process (SIGPIPE); other write errors are not worth a failure.
@@ -282,6 +291,15 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
             }
         }
         BatchEvent::Warning(w) => bar.suspend(|| eprintln!("warning: {w}")),
+        BatchEvent::Rows {
+            image,
+            rows,
+            height,
+        } => {
+            // A streamed image can take minutes: say how far into it the run is.
+            let name = image.file_name().unwrap_or_default().to_string_lossy();
+            bar.set_message(format!("{name} {} %", rows * 100 / height.max(1)));
+        }
     })?;
     bar.finish_and_clear();
     areas.write(&args.out)?;

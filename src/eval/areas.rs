@@ -444,25 +444,45 @@ impl RoiMasks {
 
     /// The mask of image `stem`: true where any channel is non-zero (white = counted).
     pub fn mask(&self, stem: &str, width: usize, height: usize) -> Result<Vec<bool>> {
+        self.rows(stem, width, height)?.next_rows(height)
+    }
+
+    /// The mask of image `stem`, read a few rows at a time (PNG and TIFF masks are never
+    /// decoded whole, so a mask as large as a streamed image costs no more memory than it).
+    pub fn rows(&self, stem: &str, width: usize, height: usize) -> Result<MaskRows> {
         let path = self.by_stem.get(stem).ok_or_else(|| {
             GroveError::input(
                 &self.dir,
                 format!("no ROI mask for image '{stem}' (expected {stem}.png here)"),
             )
         })?;
-        let img = crate::imageio::read_image(path)?;
-        if (img.width, img.height) != (width, height) {
+        let source = crate::imageio::stream::open_rows(path)?;
+        if (source.width(), source.height()) != (width, height) {
             return Err(GroveError::input(
                 path,
                 format!(
                     "ROI mask is {}x{} but the image is {width}x{height}",
-                    img.width, img.height
+                    source.width(),
+                    source.height()
                 ),
             ));
         }
-        Ok((0..width * height)
-            .map(|i| img.channels.iter().any(|c| c.data[i] > 0.0))
-            .collect())
+        Ok(MaskRows { source })
+    }
+}
+
+/// A region-of-interest mask delivered top to bottom ([`RoiMasks::rows`]).
+pub struct MaskRows {
+    source: Box<dyn crate::imageio::stream::RowSource>,
+}
+
+impl MaskRows {
+    /// The next `n` rows: true where any channel is non-zero.
+    pub fn next_rows(&mut self, n: usize) -> Result<Vec<bool>> {
+        let mut planes = vec![Vec::new(); self.source.channels()];
+        self.source.read_rows(n, &mut planes)?;
+        let px = n * self.source.width();
+        Ok((0..px).map(|i| planes.iter().any(|c| c[i] > 0.0)).collect())
     }
 }
 

@@ -36,11 +36,24 @@ pub trait RowSource: Send {
 /// Opens `path` for reading by rows: PNG and TIFF stream; other formats are decoded whole
 /// (up to [`MAX_WHOLE_DECODE_PIXELS`]).
 pub fn open_rows(path: &Path) -> Result<Box<dyn RowSource>> {
+    if let Some(rows) = open_streamable(path)? {
+        return Ok(rows);
+    }
     let ext = path
         .extension()
         .and_then(|e| e.to_str())
         .unwrap_or("")
         .to_ascii_lowercase();
+    let why = match ext.as_str() {
+        "jpg" | "jpeg" => "JPEG cannot be read in pieces",
+        _ => "this image's layout cannot be read in pieces",
+    };
+    Ok(Box::new(WholeRows::open(path, why)?))
+}
+
+/// Opens `path` for reading by rows if it can be read in pieces (PNG, and TIFF in the
+/// layouts [`TiffRows`] handles); `Ok(None)` for every other file. Only the header is read.
+pub fn open_streamable(path: &Path) -> Result<Option<Box<dyn RowSource>>> {
     let mut magic = [0u8; 4];
     {
         use std::io::Read;
@@ -48,18 +61,14 @@ pub fn open_rows(path: &Path) -> Result<Box<dyn RowSource>> {
         let _ = f.read(&mut magic).map_err(|e| GroveError::io(path, e))?;
     }
     if magic == [0x89, b'P', b'N', b'G'] {
-        return Ok(Box::new(PngRows::open(path)?));
+        return Ok(Some(Box::new(PngRows::open(path)?)));
     }
     if &magic[..2] == b"II" || &magic[..2] == b"MM" {
         if let Some(t) = TiffRows::open(path)? {
-            return Ok(Box::new(t));
+            return Ok(Some(Box::new(t)));
         }
     }
-    let why = match ext.as_str() {
-        "jpg" | "jpeg" => "JPEG cannot be read in pieces",
-        _ => "this image's layout cannot be read in pieces",
-    };
-    Ok(Box::new(WholeRows::open(path, why)?))
+    Ok(None)
 }
 
 fn scale_into(samples: impl Iterator<Item = f32>, stride: usize, out: &mut [Vec<f32>]) {

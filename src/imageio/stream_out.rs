@@ -36,6 +36,9 @@ impl PngRowWriter {
         if let Some(p) = palette {
             enc.set_palette(p);
         }
+        // Marks the file as grove's own, as `encode_png` does (see `output_guard`).
+        enc.add_text_chunk("Software".into(), crate::output_guard::generator())
+            .map_err(bad)?;
         let stream = enc
             .write_header()
             .map_err(bad)?

@@ -1,6 +1,8 @@
 //! Label files in TIFF (such as grove's own `--map-format tiff` label maps): palette and grey
 //! TIFFs give their values (class ids), RGB(A) TIFFs their colours, as label PNGs do.
-//! Read with the `tiff` crate, which gives palette images as indices and reads BigTIFF.
+//! Read with the `tiff` crate (which reads BigTIFF, strips and tiles); palette TIFFs, which
+//! that crate refuses (0.11: "RGBPalette unsupported"), are read as grey (their indices) from
+//! a copy whose photometric tag says so.
 
 use std::io::Cursor;
 
@@ -28,10 +30,36 @@ pub fn probe_label_tiff(
     Ok((w as usize, h as usize))
 }
 
+/// For a palette TIFF (PhotometricInterpretation 3, TIFF 6.0 section 5): a copy that says
+/// BlackIsZero (1) instead, so its pixels are read as the indices they are.
+fn palette_as_grey(bytes: &[u8]) -> Result<Option<Vec<u8>>, String> {
+    const PHOTOMETRIC: u16 = 262;
+    let Some((at, tag)) = super::tiff_tags::find_entry(bytes, PHOTOMETRIC)? else {
+        return Ok(None);
+    };
+    if tag.field_type != 3 || tag.data.get(..2) != Some(&[3, 0]) {
+        return Ok(None);
+    }
+    // The SHORT value sits inline after tag (2), type (2) and count (4 or 8 bytes).
+    let big = bytes.get(2..4) == Some(&[43, 0]) || bytes.get(2..4) == Some(&[0, 43]);
+    let value_at = at + if big { 12 } else { 8 };
+    let little = bytes.starts_with(b"II");
+    let mut copy = bytes.to_vec();
+    let one: [u8; 2] = if little {
+        1u16.to_le_bytes()
+    } else {
+        1u16.to_be_bytes()
+    };
+    copy[value_at..value_at + 2].copy_from_slice(&one);
+    Ok(Some(copy))
+}
+
 /// Decodes a label TIFF's first image (8- or 16-bit, one channel or RGB(A), chunky).
 pub fn decode_label_tiff(bytes: &[u8]) -> Result<LabelFile, String> {
     use tiff::decoder::{Decoder, DecodingResult as D, Limits};
     use tiff::ColorType as T;
+    let indices = palette_as_grey(bytes)?;
+    let bytes = indices.as_deref().unwrap_or(bytes);
     let mut d = Decoder::new(Cursor::new(bytes))
         .map_err(tiff_error)?
         // grove's own size check (below) replaces the crate's fixed limits.

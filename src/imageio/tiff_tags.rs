@@ -57,7 +57,25 @@ pub fn read_pass_through_tags(path: &Path) -> Result<Vec<TiffTag>> {
     if n < 8 {
         return Ok(Vec::new());
     }
-    parse(&mut f, &head, little).map_err(|m| GroveError::input(path, m))
+    let tags = parse(&mut f, &head, little, |t| PASS_THROUGH.contains(&t))
+        .map_err(|m| GroveError::input(path, m))?;
+    Ok(tags.into_iter().map(|(_, t)| t).collect())
+}
+
+/// The first image's entry for `tag` in the TIFF `bytes` (either byte order, TIFF or
+/// BigTIFF): where the entry starts, and the tag as stored (values little-endian).
+pub fn find_entry(bytes: &[u8], tag: u16) -> std::result::Result<Option<(usize, TiffTag)>, String> {
+    let mut head = [0u8; 16];
+    let n = bytes.len().min(16);
+    head[..n].copy_from_slice(&bytes[..n]);
+    let little = match &head[..2] {
+        b"II" => true,
+        b"MM" => false,
+        _ => return Ok(None),
+    };
+    let mut f = std::io::Cursor::new(bytes);
+    let found = parse(&mut f, &head, little, |t| t == tag)?;
+    Ok(found.into_iter().next().map(|(at, t)| (at as usize, t)))
 }
 
 fn read_up_to(f: &mut impl Read, buf: &mut [u8]) -> std::io::Result<usize> {
@@ -71,11 +89,14 @@ fn read_up_to(f: &mut impl Read, buf: &mut [u8]) -> std::io::Result<usize> {
     Ok(n)
 }
 
+/// The entries of the first directory whose tag `wanted` accepts, each with the file offset
+/// where its entry starts.
 fn parse<R: Read + Seek>(
     f: &mut R,
     head: &[u8; 16],
     little: bool,
-) -> std::result::Result<Vec<TiffTag>, String> {
+    wanted: impl Fn(u16) -> bool,
+) -> std::result::Result<Vec<(u64, TiffTag)>, String> {
     let u16_at = |b: &[u8]| {
         let a = [b[0], b[1]];
         if little {
@@ -126,12 +147,13 @@ fn parse<R: Read + Seek>(
         .checked_mul(entry_len)
         .filter(|&n| n <= MAX_TAG_BYTES)
         .ok_or("TIFF directory announces too many entries")?;
+    let table_at = ifd + if big { 8 } else { 2 };
     let mut table = vec![0u8; table_len as usize];
     f.read_exact(&mut table).map_err(io)?;
     let mut tags = Vec::new();
-    for e in table.chunks_exact(entry_len as usize) {
+    for (i, e) in table.chunks_exact(entry_len as usize).enumerate() {
         let tag = u16_at(e);
-        if !PASS_THROUGH.contains(&tag) {
+        if !wanted(tag) {
             continue;
         }
         let field_type = u16_at(&e[2..]);
@@ -164,12 +186,16 @@ fn parse<R: Read + Seek>(
         if !little {
             data.chunks_exact_mut(unit).for_each(<[u8]>::reverse);
         }
-        tags.push(TiffTag {
-            tag,
-            field_type,
-            count: n,
-            data,
-        });
+        let entry_at = table_at + i as u64 * entry_len;
+        tags.push((
+            entry_at,
+            TiffTag {
+                tag,
+                field_type,
+                count: n,
+                data,
+            },
+        ));
     }
     Ok(tags)
 }

@@ -115,6 +115,14 @@ pub fn read_input_file(path: &Path) -> Result<Vec<u8>> {
     std::fs::read(path).map_err(|e| GroveError::io(path, e))
 }
 
+/// True when `bytes` start like a TIFF or BigTIFF (either byte order).
+pub fn is_tiff(bytes: &[u8]) -> bool {
+    matches!(
+        bytes.get(..4),
+        Some(b"II*\0" | b"MM\0*" | b"II+\0" | b"MM\0+")
+    )
+}
+
 /// A decoder for the image in `bytes`, its format recognised from the content.
 fn decoder_for<'a>(
     path: &Path,
@@ -124,9 +132,15 @@ fn decoder_for<'a>(
     // grove's own limit (`image_check::max_pixels`, checked on the header) replaces the
     // decoder's fixed 512 MiB one, whose "Memory limit exceeded" gives no size.
     reader.no_limits();
-    let reader = reader
-        .with_guessed_format()
-        .map_err(|e| GroveError::io(path, e))?;
+    // The `image` crate's guess does not know BigTIFF's magic; its TIFF decoder reads it.
+    let reader = if is_tiff(bytes) {
+        reader.set_format(image::ImageFormat::Tiff);
+        reader
+    } else {
+        reader
+            .with_guessed_format()
+            .map_err(|e| GroveError::io(path, e))?
+    };
     let Some(format) = reader.format() else {
         return Err(GroveError::input(
             path,
@@ -268,7 +282,7 @@ pub struct LabelFile {
 /// palette images yield their indices.
 pub fn read_label_file(path: &Path) -> Result<LabelFile> {
     let bytes = read_input_file(path)?;
-    if tiff_labels::is_tiff(&bytes) {
+    if is_tiff(&bytes) {
         tiff_labels::decode_label_tiff(&bytes).map_err(|m| GroveError::input(path, m))
     } else {
         decode_label_png(&bytes).map_err(|m| GroveError::input(path, m))
@@ -278,7 +292,7 @@ pub fn read_label_file(path: &Path) -> Result<LabelFile> {
 /// Width and height of a label file (PNG or TIFF) from its header, without decoding.
 pub fn probe_label_file(path: &Path) -> Result<(usize, usize)> {
     let head = read_head(path, 4)?;
-    if tiff_labels::is_tiff(&head) {
+    if is_tiff(&head) {
         let file = std::fs::File::open(path).map_err(|e| GroveError::io(path, e))?;
         tiff_labels::probe_label_tiff(std::io::BufReader::new(file))
             .map_err(|m| GroveError::input(path, m))

@@ -9,14 +9,6 @@ use std::io::Cursor;
 use super::{LabelFile, LabelPixels};
 use crate::image_check::size_problem;
 
-/// True when `bytes` start like a TIFF or BigTIFF (either byte order).
-pub fn is_tiff(bytes: &[u8]) -> bool {
-    matches!(
-        bytes.get(..4),
-        Some(b"II*\0" | b"MM\0*" | b"II+\0" | b"MM\0+")
-    )
-}
-
 fn tiff_error(e: tiff::TiffError) -> String {
     format!("cannot decode label TIFF: {e}")
 }

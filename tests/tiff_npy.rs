@@ -313,6 +313,23 @@ fn apply_writes_tagged_tiff_maps_and_npy_the_same_streamed_and_whole() {
             );
         }
     }
+    // A TIFF label map goes back into a dataset as labels (to be corrected and retrained on).
+    let data = t.path().join("data");
+    std::fs::create_dir_all(data.join("images")).unwrap();
+    std::fs::create_dir_all(data.join("labels")).unwrap();
+    std::fs::copy(whole.join("classes.toml"), data.join("classes.toml")).unwrap();
+    let name = "geo_rgb8_strips.tif";
+    std::fs::copy(images.join(name), data.join("images").join(name)).unwrap();
+    std::fs::copy(
+        whole.join("labels").join(name),
+        data.join("labels").join(name),
+    )
+    .unwrap();
+    let ds = Dataset::open(&data, LabelOptions::default()).unwrap();
+    assert!(ds.warnings.is_empty(), "{:?}", ds.warnings);
+    let (image, labels) = ds.load_pair(ds.labelled()[0]).unwrap();
+    assert_eq!((labels.width, labels.height), (image.width, image.height));
+    assert!(labels.indices.iter().all(|&c| (c as usize) < table.len()));
 }
 
 /// `apply` on `input` fails naming it with `words`, and writes no map.
@@ -369,5 +386,10 @@ fn bad_tiffs_are_refused_naming_the_file() {
         "tag 34735 announces too many values",
     );
     // Signed 16-bit samples (SampleFormat 2, written by tifffile).
-    refused(&model, &fixture("inputs/signed16.tif"), &[], "");
+    refused(
+        &model,
+        &fixture("inputs/signed16.tif"),
+        &[],
+        "sample format 2",
+    );
 }

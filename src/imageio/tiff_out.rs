@@ -156,6 +156,18 @@ fn tile_side(width: usize, height: usize) -> usize {
     width.max(height).next_multiple_of(16).min(TILE)
 }
 
+/// True when a standard TIFF of these pixels could pass its 32-bit offsets' 4 GiB: the bound
+/// assumes tiles that do not compress at all.
+fn could_pass_4_gib(width: usize, height: usize, samples: usize) -> bool {
+    let tile = tile_side(width, height);
+    let tiles = (width.div_ceil(tile) * height.div_ceil(tile)) as u64;
+    let tile_bytes = (tile * tile * samples) as u64;
+    // zlib's worst case grows incompressible data by 5 bytes per 16 KiB block plus 6
+    // (RFC 1950/1951 stored blocks); count 1 % and 64 bytes per tile to be safe.
+    let bound = tiles * (tile_bytes + tile_bytes / 100 + 64) + 16 * tiles + TAG_ROOM;
+    bound > u32::MAX as u64
+}
+
 /// zlib-compresses one tile (fast level: maps are mostly runs, and the speed matters more).
 fn deflate(tile: &[u8]) -> Vec<u8> {
     let mut z = flate2::write::ZlibEncoder::new(
@@ -184,12 +196,8 @@ impl TiffRowWriter {
             ));
         }
         let tile = tile_side(width, height);
-        let tiles = (width.div_ceil(tile) * height.div_ceil(tile)) as u64;
-        let tile_bytes = (tile * tile * pixels.samples()) as u64;
-        // zlib's worst case grows incompressible data by 5 bytes per 16 KiB block plus 6
-        // (RFC 1950/1951 stored blocks); count 1 % and 64 bytes per tile to be safe.
-        let bound = tiles * (tile_bytes + tile_bytes / 100 + 64) + 16 * tiles + TAG_ROOM;
-        let big = flavour == TiffFlavour::Big || bound > u32::MAX as u64;
+        let tiles = width.div_ceil(tile) * height.div_ceil(tile);
+        let big = flavour == TiffFlavour::Big || could_pass_4_gib(width, height, pixels.samples());
         let out = AtomicFile::create(path)?;
         let mut writer = BufWriter::with_capacity(1 << 20, out.handle()?);
         let mut head: Vec<u8> = b"II".to_vec();
@@ -229,8 +237,8 @@ impl TiffRowWriter {
             band: Vec::with_capacity(tile * width * pixels.samples()),
             pixels,
             rows_written: 0,
-            offsets: Vec::with_capacity(tiles as usize),
-            counts: Vec::with_capacity(tiles as usize),
+            offsets: Vec::with_capacity(tiles),
+            counts: Vec::with_capacity(tiles),
         })
     }
 
@@ -481,6 +489,16 @@ mod tests {
         }
         // Nothing else is left in the folder (the temporaries were renamed).
         assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 3);
+    }
+
+    #[test]
+    fn bigtiff_only_when_4_gib_could_be_passed() {
+        // 3.6 GB of grey fits a standard TIFF even uncompressed; 4.4 GB does not.
+        assert!(!could_pass_4_gib(60_000, 60_000, 1));
+        assert!(could_pass_4_gib(66_000, 66_000, 1));
+        // The same pixels as RGB take three times the room.
+        assert!(could_pass_4_gib(40_000, 40_000, 3));
+        assert!(!could_pass_4_gib(30_000, 30_000, 3));
     }
 
     #[test]

@@ -126,7 +126,12 @@ fn parse<R: Read + Seek>(
         43 => true,
         _ => return Ok(Vec::new()),
     };
-    let io = |e: std::io::Error| format!("cannot read the TIFF directory: {e}");
+    let io = |e: std::io::Error| match e.kind() {
+        std::io::ErrorKind::UnexpectedEof => {
+            "the file is truncated or damaged: its TIFF directory lies beyond its end".to_string()
+        }
+        _ => format!("cannot read the TIFF directory: {e}"),
+    };
     let ifd = if big {
         u64_at(&head[8..])
     } else {

@@ -250,6 +250,7 @@ fn apply_writes_tagged_tiff_maps_and_npy_the_same_streamed_and_whole() {
                 "--map-format",
                 "tiff",
                 "--confidence",
+                "--uncertainty",
                 "--probabilities",
                 "npy",
                 "--log-json",
@@ -268,8 +269,9 @@ fn apply_writes_tagged_tiff_maps_and_npy_the_same_streamed_and_whole() {
     assert_eq!(run(0, &streamed), [true; 3]);
     let (a, b) = (files(&whole), files(&streamed));
     assert_eq!(a.keys().collect::<Vec<_>>(), b.keys().collect::<Vec<_>>());
-    // 3 images × (labels, overlay, confidence, npy) + classes.toml + areas.csv/json.
-    assert_eq!(a.len(), 3 * 4 + 3, "{:?}", a.keys());
+    // 3 images × (labels, overlay, confidence, 2 uncertainty, npy) + classes.toml +
+    // areas.csv/json.
+    assert_eq!(a.len(), 3 * 6 + 3, "{:?}", a.keys());
     for (name, bytes) in &a {
         assert!(
             bytes == &b[name],
@@ -279,7 +281,13 @@ fn apply_writes_tagged_tiff_maps_and_npy_the_same_streamed_and_whole() {
     let table = grove::model::load(&model).unwrap().classes;
     for (name, (w, h)) in inputs {
         let input = images.join(format!("{name}.tif"));
-        for map in ["labels", "overlays", "confidence"] {
+        for map in [
+            "labels",
+            "overlays",
+            "confidence",
+            "uncertainty/margin",
+            "uncertainty/entropy",
+        ] {
             let out = whole.join(format!("{map}/{name}.tif"));
             for code in [282, 283, 296, 33550, 33922, 34264, 34735, 34736, 34737] {
                 assert_eq!(
@@ -312,6 +320,44 @@ fn apply_writes_tagged_tiff_maps_and_npy_the_same_streamed_and_whole() {
                 "{name}: label ≠ most probable"
             );
         }
+    }
+    // Probability maps in TIFF: one 8-bit grey map per class, probability × 255 (rounded
+    // half away from zero, as Rust's `round`).
+    let maps = t.path().join("maps");
+    let o = grove_bin(
+        usize::MAX,
+        &[
+            "apply",
+            model.to_str().unwrap(),
+            images.join("geo_rgb8_strips.tif").to_str().unwrap(),
+            "--out",
+            maps.to_str().unwrap(),
+            "--smooth",
+            "none",
+            "--tile",
+            "24",
+            "--map-format",
+            "tiff",
+            "--probabilities",
+        ],
+    );
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let (_, p) = read_npy(&whole.join("probabilities/geo_rgb8_strips.npy"));
+    let k = table.len();
+    for (c, class) in table.classes().iter().enumerate() {
+        let path = maps.join(format!("probabilities/geo_rgb8_strips/{}.tif", class.name));
+        let mut d = tiff::decoder::Decoder::new(std::fs::File::open(&path).unwrap()).unwrap();
+        assert_eq!(d.colortype().unwrap(), tiff::ColorType::Gray(8));
+        let tiff::decoder::DecodingResult::U8(v) = d.read_image().unwrap() else {
+            panic!("{path:?} is not 8-bit");
+        };
+        let expect: Vec<u8> = p
+            .iter()
+            .skip(c)
+            .step_by(k)
+            .map(|&x| (x * 255.0).round() as u8)
+            .collect();
+        assert_eq!(v, expect, "{path:?}");
     }
     // A TIFF label map goes back into a dataset as labels (to be corrected and retrained on).
     let data = t.path().join("data");

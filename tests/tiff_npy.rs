@@ -9,7 +9,8 @@
 //! * `grove apply --map-format tiff --probabilities npy` writes the same files streamed and
 //!   whole, carries each input's tags onto its maps (compared with the `tiff` crate's tag
 //!   reader), and its arrays agree with its label maps;
-//! * bad TIFFs fail with the file's name and leave no output.
+//! * bad TIFFs fail with the file's name and leave no output; a `.npy` grove recorded is
+//!   replaced, another one is not.
 
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -438,4 +439,40 @@ fn bad_tiffs_are_refused_naming_the_file() {
         &[],
         "sample format 2",
     );
+}
+
+#[test]
+fn npy_files_grove_recorded_are_replaced_foreign_ones_are_not() {
+    // A `.npy` has no room for grove's signature, so `apply` trusts the resume record that
+    // lists it (see `Records::recorded_outputs`).
+    let t = tempfile::tempdir().unwrap();
+    let model = train_small(t.path());
+    let input = fixture("inputs/geo_rgb8_strips.tif");
+    let apply = |out: &Path, extra: &[&str]| {
+        let mut args = vec![
+            "apply",
+            model.to_str().unwrap(),
+            input.to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+            "--probabilities",
+            "npy",
+        ];
+        args.extend_from_slice(extra);
+        grove_bin(usize::MAX, &args)
+    };
+    let out = t.path().join("out");
+    assert!(apply(&out, &[]).status.success());
+    // Other settings: the record no longer matches, but its files are grove's.
+    let o = apply(&out, &["--confidence"]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let foreign = t.path().join("foreign");
+    std::fs::create_dir_all(foreign.join("probabilities")).unwrap();
+    let npy = foreign.join("probabilities/geo_rgb8_strips.npy");
+    std::fs::write(&npy, b"someone else's array").unwrap();
+    let o = apply(&foreign, &[]);
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(!o.status.success());
+    assert!(err.contains("was not written by grove"), "{err}");
+    assert_eq!(std::fs::read(&npy).unwrap(), b"someone else's array");
 }

@@ -13,8 +13,12 @@ use image::DynamicImage;
 use crate::error::{GroveError, Result};
 use crate::image_check::{check_jpeg_complete, check_size, describe_decode_error, size_problem};
 
+pub mod npy;
 pub mod stream;
 pub mod stream_out;
+pub mod tiff_labels;
+pub mod tiff_out;
+pub mod tiff_tags;
 use crate::plane::Plane;
 
 /// An input image as sRGB-encoded planes in [0, 1]: one plane (grey) or three (R, G, B).
@@ -117,6 +121,14 @@ pub fn read_input_file(path: &Path) -> Result<Vec<u8>> {
     std::fs::read(path).map_err(|e| GroveError::io(path, e))
 }
 
+/// True when `bytes` start like a TIFF or BigTIFF (either byte order).
+pub fn is_tiff(bytes: &[u8]) -> bool {
+    matches!(
+        bytes.get(..4),
+        Some(b"II*\0" | b"MM\0*" | b"II+\0" | b"MM\0+")
+    )
+}
+
 /// A decoder for the image `source` holds (`len` bytes), its format recognised from the
 /// content. Generic over the source so a header can be probed from the file without reading
 /// all of it.
@@ -125,13 +137,21 @@ fn decoder_for<'a, R: std::io::BufRead + std::io::Seek + 'a>(
     source: R,
     len: usize,
 ) -> Result<(image::ImageFormat, impl image::ImageDecoder + 'a)> {
+    let mut source = source;
+    let tiff = is_tiff(source.fill_buf().map_err(|e| GroveError::io(path, e))?);
     let mut reader = image::ImageReader::new(source);
     // grove's own limit (`image_check::max_pixels`, checked on the header) replaces the
     // decoder's fixed 512 MiB one, whose "Memory limit exceeded" gives no size.
     reader.no_limits();
-    let reader = reader
-        .with_guessed_format()
-        .map_err(|e| GroveError::io(path, e))?;
+    // The `image` crate's guess does not know BigTIFF's magic; its TIFF decoder reads it.
+    let reader = if tiff {
+        reader.set_format(image::ImageFormat::Tiff);
+        reader
+    } else {
+        reader
+            .with_guessed_format()
+            .map_err(|e| GroveError::io(path, e))?
+    };
     let Some(format) = reader.format() else {
         return Err(GroveError::input(
             path,
@@ -269,6 +289,40 @@ pub struct LabelFile {
     pub width: usize,
     pub height: usize,
     pub pixels: LabelPixels,
+}
+
+/// Reads a label file, PNG or TIFF (recognised from its content), without colour expansion:
+/// palette images yield their indices.
+pub fn read_label_file(path: &Path) -> Result<LabelFile> {
+    let bytes = read_input_file(path)?;
+    if is_tiff(&bytes) {
+        tiff_labels::decode_label_tiff(&bytes).map_err(|m| GroveError::input(path, m))
+    } else {
+        decode_label_png(&bytes).map_err(|m| GroveError::input(path, m))
+    }
+}
+
+/// Width and height of a label file (PNG or TIFF) from its header, without decoding.
+pub fn probe_label_file(path: &Path) -> Result<(usize, usize)> {
+    let head = read_head(path, 4)?;
+    if is_tiff(&head) {
+        let file = std::fs::File::open(path).map_err(|e| GroveError::io(path, e))?;
+        tiff_labels::probe_label_tiff(std::io::BufReader::new(file))
+            .map_err(|m| GroveError::input(path, m))
+    } else {
+        probe_label_png(path)
+    }
+}
+
+/// The first `n` bytes of a file (fewer when it is shorter).
+fn read_head(path: &Path, n: usize) -> Result<Vec<u8>> {
+    use std::io::Read;
+    let f = std::fs::File::open(path).map_err(|e| GroveError::io(path, e))?;
+    let mut head = Vec::with_capacity(n);
+    f.take(n as u64)
+        .read_to_end(&mut head)
+        .map_err(|e| GroveError::io(path, e))?;
+    Ok(head)
 }
 
 /// Reads a label PNG without colour expansion: a palette-indexed PNG yields its indices

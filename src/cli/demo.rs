@@ -107,7 +107,7 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
     };
     let areas = std::cell::RefCell::new(AreaTable::new(model.classes.names(), None));
     let deliver = |e: &ImageEntry, img: &RasterImage, pred: &Prediction| {
-        let index = write_outputs(&pred_dir, &e.stem, img, pred, &model.classes, &opts)?.index;
+        let index = write_outputs(&pred_dir, &e.stem, img, pred, &model.classes, &opts, &[])?.index;
         let counts = count_classes(&index, model.classes.len(), None);
         areas.borrow_mut().add_counts(&e.stem, &counts);
         Ok(())

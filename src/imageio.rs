@@ -13,8 +13,12 @@ use image::DynamicImage;
 use crate::error::{GroveError, Result};
 use crate::image_check::{check_jpeg_complete, check_size, describe_decode_error, size_problem};
 
+pub mod npy;
 pub mod stream;
 pub mod stream_out;
+pub mod tiff_labels;
+pub mod tiff_out;
+pub mod tiff_tags;
 use crate::plane::Plane;
 
 /// An input image as sRGB-encoded planes in [0, 1]: one plane (grey) or three (R, G, B).
@@ -92,9 +96,9 @@ pub fn has_image_extension(path: &Path) -> bool {
         .unwrap_or(false)
 }
 
-/// Reads an input file's bytes after checking that it is a regular file (not a folder or a
-/// device such as `/dev/zero`, which would be read forever).
-pub fn read_input_file(path: &Path) -> Result<Vec<u8>> {
+/// Checks that `path` is a regular file (not a folder or a device such as `/dev/zero`, which
+/// would be read forever) and returns its length in bytes.
+fn check_input_file(path: &Path) -> Result<u64> {
     let meta = std::fs::metadata(path).map_err(|e| GroveError::io(path, e))?;
     if meta.is_dir() {
         return Err(GroveError::input(
@@ -108,25 +112,50 @@ pub fn read_input_file(path: &Path) -> Result<Vec<u8>> {
             "is not a regular file (a device or pipe?); pass an image file",
         ));
     }
+    Ok(meta.len())
+}
+
+/// Reads an input file's bytes after [`check_input_file`].
+pub fn read_input_file(path: &Path) -> Result<Vec<u8>> {
+    check_input_file(path)?;
     std::fs::read(path).map_err(|e| GroveError::io(path, e))
 }
 
-/// A decoder for the image in `bytes`, its format recognised from the content.
-fn decoder_for<'a>(
+/// True when `bytes` start like a TIFF or BigTIFF (either byte order).
+pub fn is_tiff(bytes: &[u8]) -> bool {
+    matches!(
+        bytes.get(..4),
+        Some(b"II*\0" | b"MM\0*" | b"II+\0" | b"MM\0+")
+    )
+}
+
+/// A decoder for the image `source` holds (`len` bytes), its format recognised from the
+/// content. Generic over the source so a header can be probed from the file without reading
+/// all of it.
+fn decoder_for<'a, R: std::io::BufRead + std::io::Seek + 'a>(
     path: &Path,
-    bytes: &'a [u8],
+    source: R,
+    len: usize,
 ) -> Result<(image::ImageFormat, impl image::ImageDecoder + 'a)> {
-    let mut reader = image::ImageReader::new(Cursor::new(bytes));
+    let mut source = source;
+    let tiff = is_tiff(source.fill_buf().map_err(|e| GroveError::io(path, e))?);
+    let mut reader = image::ImageReader::new(source);
     // grove's own limit (`image_check::max_pixels`, checked on the header) replaces the
     // decoder's fixed 512 MiB one, whose "Memory limit exceeded" gives no size.
     reader.no_limits();
-    let reader = reader
-        .with_guessed_format()
-        .map_err(|e| GroveError::io(path, e))?;
+    // The `image` crate's guess does not know BigTIFF's magic; its TIFF decoder reads it.
+    let reader = if tiff {
+        reader.set_format(image::ImageFormat::Tiff);
+        reader
+    } else {
+        reader
+            .with_guessed_format()
+            .map_err(|e| GroveError::io(path, e))?
+    };
     let Some(format) = reader.format() else {
         return Err(GroveError::input(
             path,
-            if bytes.is_empty() {
+            if len == 0 {
                 "the file is empty (0 bytes)"
             } else {
                 "not a PNG, JPEG or TIFF image (its content is not recognised; is the file misnamed or damaged?)"
@@ -135,7 +164,7 @@ fn decoder_for<'a>(
     };
     let decoder = reader
         .into_decoder()
-        .map_err(|e| GroveError::input(path, describe_decode_error(&e, bytes.len())))?;
+        .map_err(|e| GroveError::input(path, describe_decode_error(&e, len)))?;
     Ok((format, decoder))
 }
 
@@ -144,7 +173,7 @@ fn decoder_for<'a>(
 fn decode(path: &Path) -> Result<DynamicImage> {
     use image::ImageDecoder;
     let bytes = read_input_file(path)?;
-    let (format, decoder) = decoder_for(path, &bytes)?;
+    let (format, decoder) = decoder_for(path, Cursor::new(&bytes), bytes.len())?;
     let (w, h) = decoder.dimensions();
     check_size(path, w as u64, h as u64)?;
     if format == image::ImageFormat::Jpeg {
@@ -167,8 +196,10 @@ pub struct ImageHeader {
 /// colour mode before any pixel is decoded).
 pub fn probe_image(path: &Path) -> Result<ImageHeader> {
     use image::ImageDecoder;
-    let bytes = read_input_file(path)?;
-    let (_, decoder) = decoder_for(path, &bytes)?;
+    // Only the header is read: probing a multi-gigabyte image must not load it.
+    let len = check_input_file(path)?;
+    let file = std::fs::File::open(path).map_err(|e| GroveError::io(path, e))?;
+    let (_, decoder) = decoder_for(path, std::io::BufReader::new(file), len as usize)?;
     let (w, h) = decoder.dimensions();
     check_size(path, w as u64, h as u64)?;
     Ok(ImageHeader {
@@ -258,6 +289,40 @@ pub struct LabelFile {
     pub width: usize,
     pub height: usize,
     pub pixels: LabelPixels,
+}
+
+/// Reads a label file, PNG or TIFF (recognised from its content), without colour expansion:
+/// palette images yield their indices.
+pub fn read_label_file(path: &Path) -> Result<LabelFile> {
+    let bytes = read_input_file(path)?;
+    if is_tiff(&bytes) {
+        tiff_labels::decode_label_tiff(&bytes).map_err(|m| GroveError::input(path, m))
+    } else {
+        decode_label_png(&bytes).map_err(|m| GroveError::input(path, m))
+    }
+}
+
+/// Width and height of a label file (PNG or TIFF) from its header, without decoding.
+pub fn probe_label_file(path: &Path) -> Result<(usize, usize)> {
+    let head = read_head(path, 4)?;
+    if is_tiff(&head) {
+        let file = std::fs::File::open(path).map_err(|e| GroveError::io(path, e))?;
+        tiff_labels::probe_label_tiff(std::io::BufReader::new(file))
+            .map_err(|m| GroveError::input(path, m))
+    } else {
+        probe_label_png(path)
+    }
+}
+
+/// The first `n` bytes of a file (fewer when it is shorter).
+fn read_head(path: &Path, n: usize) -> Result<Vec<u8>> {
+    use std::io::Read;
+    let f = std::fs::File::open(path).map_err(|e| GroveError::io(path, e))?;
+    let mut head = Vec::with_capacity(n);
+    f.take(n as u64)
+        .read_to_end(&mut head)
+        .map_err(|e| GroveError::io(path, e))?;
+    Ok(head)
 }
 
 /// Reads a label PNG without colour expansion: a palette-indexed PNG yields its indices

@@ -1,10 +1,11 @@
-//! What `apply` delivers per image: a label PNG (palette = class colours, pixel value =
+//! What `apply` delivers per image: a label map (palette = class colours, pixel value =
 //! class id, so it can be corrected and fed back as training labels), a colour overlay on
 //! the image, and on request a confidence map and per-class probability maps.
 //!
-//! Layout under the output folder: `labels/STEM.png`, `overlays/STEM.png`,
-//! `confidence/STEM.png`, `uncertainty/{margin,entropy}/STEM.png`,
-//! `probabilities/STEM/CLASS.png`.
+//! Layout under the output folder (EXT = png, or tif with `--map-format tiff`):
+//! `labels/STEM.EXT`, `overlays/STEM.EXT`, `confidence/STEM.EXT`,
+//! `uncertainty/{margin,entropy}/STEM.EXT`, `probabilities/STEM/CLASS.EXT` or, with
+//! `--probabilities npy`, `probabilities/STEM.npy` (float32, height × width × classes).
 
 pub mod stream;
 
@@ -12,8 +13,38 @@ use std::path::{Path, PathBuf};
 
 use crate::dataset::ClassTable;
 use crate::error::Result;
+use crate::imageio::tiff_tags::TiffTag;
 use crate::imageio::{output_path, RasterImage};
 use crate::prediction::Prediction;
+pub use stream::MapFormat;
+
+/// How per-class probabilities are written (`--probabilities maps|npy`).
+#[derive(
+    Clone,
+    Copy,
+    Debug,
+    Default,
+    PartialEq,
+    Eq,
+    clap::ValueEnum,
+    serde::Serialize,
+    serde::Deserialize,
+)]
+#[serde(rename_all = "lowercase")]
+pub enum ProbabilityFormat {
+    /// One 8-bit map per class (probability × 255) under probabilities/NAME/, in the
+    /// --map-format (png or tiff).
+    #[default]
+    #[value(alias = "png", alias = "tiff")]
+    Maps,
+    /// probabilities/NAME.npy: float32, height × width × classes in class-table order
+    /// (numpy.load).
+    Npy,
+}
+
+fn is_default<T: Default + PartialEq>(v: &T) -> bool {
+    *v == T::default()
+}
 
 /// Which optional outputs to write (serialised into batch resume records).
 #[derive(Clone, Debug, serde::Serialize)]
@@ -28,6 +59,16 @@ pub struct OutputOptions {
     /// Class indices left untinted in overlays (`--no-tint`), sorted: a black background
     /// class tinted grey would hide nothing but dim the image.
     pub untinted: Vec<u8>,
+    /// Format of the probabilities when `probabilities` is on. Left out of the resume
+    /// records at its default, so records of earlier runs still match.
+    #[serde(skip_serializing_if = "is_default")]
+    pub probability_format: ProbabilityFormat,
+    /// File format of every map (labels, overlays, confidence, uncertainty, probabilities).
+    #[serde(skip_serializing_if = "is_default")]
+    pub map_format: MapFormat,
+    /// TIFF maps as BigTIFF even when they would fit a standard TIFF.
+    #[serde(skip_serializing_if = "is_default")]
+    pub bigtiff: bool,
 }
 
 impl OutputOptions {
@@ -54,6 +95,9 @@ impl Default for OutputOptions {
             uncertainty: false,
             overlay_opacity: 0.45,
             untinted: Vec::new(),
+            probability_format: ProbabilityFormat::Maps,
+            map_format: MapFormat::Png,
+            bigtiff: false,
         }
     }
 }
@@ -94,13 +138,14 @@ pub struct OutputPaths {
     pub confidence: Option<PathBuf>,
     /// Margin and entropy maps.
     pub uncertainty: Option<[PathBuf; 2]>,
-    /// One per class, in class-table order.
+    /// One per class, in class-table order (PNG/TIFF maps), or one `.npy` for all classes.
     pub probabilities: Vec<PathBuf>,
 }
 
 impl OutputPaths {
     pub fn new(out_dir: &Path, stem: &str, classes: &ClassTable, opts: &OutputOptions) -> Self {
-        let in_sub = |sub: &str| output_path(&out_dir.join(sub), stem, "png");
+        let ext = opts.map_format.extension();
+        let in_sub = |sub: &str| output_path(&out_dir.join(sub), stem, ext);
         let prob_dir = out_dir
             .join("probabilities")
             .join(crate::output_guard::safe_file_name(stem));
@@ -111,14 +156,16 @@ impl OutputPaths {
             uncertainty: opts
                 .uncertainty
                 .then(|| [in_sub("uncertainty/margin"), in_sub("uncertainty/entropy")]),
-            probabilities: if opts.probabilities {
-                classes
+            probabilities: match (opts.probabilities, opts.probability_format) {
+                (false, _) => Vec::new(),
+                (true, ProbabilityFormat::Npy) => {
+                    vec![output_path(&out_dir.join("probabilities"), stem, "npy")]
+                }
+                (true, ProbabilityFormat::Maps) => classes
                     .classes()
                     .iter()
-                    .map(|c| output_path(&prob_dir, &c.name, "png"))
-                    .collect()
-            } else {
-                Vec::new()
+                    .map(|c| output_path(&prob_dir, &c.name, ext))
+                    .collect(),
             },
         }
     }
@@ -142,9 +189,18 @@ pub struct WrittenOutputs {
     pub files: Vec<PathBuf>,
 }
 
+/// The tags an input passes on to its TIFF maps (none for PNG maps or non-TIFF inputs).
+pub fn pass_through_tags(source: &Path, opts: &OutputOptions) -> Result<Vec<TiffTag>> {
+    match opts.map_format {
+        MapFormat::Png => Ok(Vec::new()),
+        MapFormat::Tiff => crate::imageio::tiff_tags::read_pass_through_tags(source),
+    }
+}
+
 /// Writes the outputs for one image: maps of `prediction.labels`, confidence, uncertainty
 /// and probability maps of `prediction.probabilities` (smoothed ones after mean-field),
-/// through the same writers as an image streamed band by band ([`stream::MapWriters`]).
+/// through the same writers as an image streamed band by band ([`stream::MapWriters`]);
+/// TIFF maps carry `tags` (the input's, see [`pass_through_tags`]).
 pub fn write_outputs(
     out_dir: &Path,
     stem: &str,
@@ -152,10 +208,11 @@ pub fn write_outputs(
     prediction: &Prediction,
     classes: &ClassTable,
     opts: &OutputOptions,
+    tags: &[TiffTag],
 ) -> Result<WrittenOutputs> {
     let probs = &prediction.probabilities;
     let size = (probs.width, probs.height);
-    let mut writers = stream::MapWriters::create(out_dir, stem, size, classes, opts)?;
+    let mut writers = stream::MapWriters::create(out_dir, stem, size, classes, opts, tags)?;
     writers.write_band(image, prediction)?;
     Ok(WrittenOutputs {
         index: prediction.labels.clone(),

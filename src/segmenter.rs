@@ -153,6 +153,19 @@ impl TrainConfig {
         entries: &[&ImageEntry],
         progress: Progress,
     ) -> Result<Segmenter> {
+        self.fit_keeping_rows(dataset, entries, progress)
+            .map(|(model, _)| model)
+    }
+
+    /// [`TrainConfig::fit`], also handing back the sampled feature rows the forest learnt
+    /// from, so that later steps on the same images (the smoothing-strength search) need not
+    /// filter them again: features are most of a training run's time.
+    pub fn fit_keeping_rows(
+        &self,
+        dataset: &Dataset,
+        entries: &[&ImageEntry],
+        progress: Progress,
+    ) -> Result<(Segmenter, TrainingRows)> {
         self.validate()?;
         if entries.is_empty() {
             return Err(GroveError::Data(format!(
@@ -261,13 +274,16 @@ impl TrainConfig {
         let mut x: Vec<f32> = Vec::with_capacity(y.len() * n_features);
         let mut sizes = Vec::with_capacity(n_images);
         let mut moments = Vec::with_capacity(n_images);
+        let mut per_image = Vec::with_capacity(n_images);
         for ((e, pixels), cache) in entries.iter().zip(&forest_pixels).zip(cached) {
             let responses = match cache {
                 Some(r) => r,
                 None => extractor.responses(&read_image(&e.image)?),
             };
             let stack = extractor.stack(responses);
+            let first = x.len() / n_features;
             x.extend(stack.gather_rows(pixels));
+            per_image.push(first..first + pixels.len());
             sizes.push((stack.width as u32, stack.height as u32));
             moments.push(stack_moments(&stack));
             bar.inc(1);
@@ -287,7 +303,7 @@ impl TrainConfig {
         let forest = RandomForest::fit(&forest_config, &x, n_features, &y, n_classes)?;
         spinner.finish_and_clear();
         let created_unix = creation_time();
-        Ok(Segmenter {
+        let model = Segmenter {
             classes: dataset.classes.clone(),
             provenance: Provenance {
                 grove_version: env!("CARGO_PKG_VERSION").to_string(),
@@ -303,8 +319,28 @@ impl TrainConfig {
             forest,
             smoothing: SmoothDefault::library(),
             profile: Some(TrainingProfile::from_images(sizes, &moments)),
-        })
+        };
+        let rows = TrainingRows {
+            x,
+            y,
+            n_features,
+            per_image,
+        };
+        Ok((model, rows))
     }
+}
+
+/// The sampled training pixels of a fit as feature rows: what [`TrainConfig::fit_keeping_rows`]
+/// keeps besides the model.
+#[derive(Clone, Debug)]
+pub struct TrainingRows {
+    /// Row-major, `y.len()` rows of `n_features` values.
+    pub x: Vec<f32>,
+    /// Class index of each row.
+    pub y: Vec<u32>,
+    pub n_features: usize,
+    /// The rows of each training image (in the order of the `entries` given to the fit).
+    pub per_image: Vec<std::ops::Range<usize>>,
 }
 
 /// The feature moments of a whole training image, taken as `predict_core` takes them.

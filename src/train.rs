@@ -5,7 +5,7 @@
 
 use crate::dataset::{Dataset, ImageEntry};
 use crate::error::Result;
-use crate::eval::smoothing_strength::{choose_strength, StrengthChoice, SEARCH_TREES};
+use crate::eval::smoothing_strength::{choose_strength_reusing, StrengthChoice, SEARCH_TREES};
 use crate::prediction::SmoothDefault;
 use crate::progress::Progress;
 use crate::segmenter::{Segmenter, TrainConfig};
@@ -43,15 +43,16 @@ pub fn train(
 ) -> Result<Trained> {
     let t0 = std::time::Instant::now();
     // The real model first: its checks of the dataset give the clearest messages, and the
-    // strength search below trains on a subset that may fail for reasons of its own.
-    let mut model = config.fit(dataset, entries, progress)?;
+    // strength search below trains on a subset that may fail for reasons of its own. It
+    // reuses the fit's feature rows.
+    let (mut model, rows) = config.fit_keeping_rows(dataset, entries, progress)?;
     let method = smoothing.method.unwrap_or(SmoothMethod::Expansion);
     let (mut choice, mut search_failed) = (None, None);
     let given = smoothing.method == Some(SmoothMethod::None) || smoothing.strength.is_some();
     model.smoothing = match (smoothing.method, smoothing.strength) {
         (Some(SmoothMethod::None), _) => SmoothDefault::NONE,
         (_, Some(strength)) => SmoothDefault { method, strength },
-        _ => match choose_strength(config, dataset, entries, method, progress) {
+        _ => match choose_strength_reusing(&model, &rows, dataset, entries, method, progress) {
             Ok(Some(c)) => {
                 let d = c.default();
                 choice = Some(c);
@@ -64,6 +65,7 @@ pub fn train(
             }
         },
     };
+    drop(rows);
     Ok(Trained {
         model,
         choice,

@@ -192,6 +192,9 @@ fn folds_partition_images_and_one_fold_equals_train_plus_eval() {
         test_dir.to_str().unwrap(),
         "--json",
         ej.to_str().unwrap(),
+        // crossval scores the forest's maps unless told to smooth; so must the twin.
+        "--smooth",
+        "none",
     ]);
     let eval = read_json(&ej);
     assert_eq!(

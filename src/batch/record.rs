@@ -80,6 +80,21 @@ impl Records {
         matches.then_some(rec)
     }
 
+    /// The outputs an earlier run of grove recorded for `stem`, whatever its model or
+    /// settings: files grove wrote even when they cannot say so themselves (`.npy` arrays
+    /// have no room for a signature, see `output_guard`).
+    pub fn recorded_outputs(&self, stem: &str) -> Vec<PathBuf> {
+        let Ok(text) = std::fs::read_to_string(self.path(stem)) else {
+            return Vec::new();
+        };
+        match serde_json::from_str::<ImageRecord>(&text) {
+            Ok(rec) if rec.generator.starts_with(crate::output_guard::SIGNATURE) => {
+                rec.outputs.iter().map(|o| self.out_dir.join(o)).collect()
+            }
+            _ => Vec::new(),
+        }
+    }
+
     /// A record for outputs just written (absolute or relative to the working directory).
     pub fn make(
         &self,

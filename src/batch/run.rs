@@ -19,8 +19,9 @@ use crate::dataset::stem_of;
 use crate::error::Result;
 use crate::eval::areas::{count_classes, AreaTable, RoiMasks};
 use crate::imageio::stream::{open_streamable, RowSource};
+use crate::imageio::tiff_tags::TiffTag;
 use crate::imageio::{read_image, RasterImage};
-use crate::outputs::{write_outputs, OutputOptions};
+use crate::outputs::{pass_through_tags, write_outputs, OutputOptions};
 use crate::prediction::Prediction;
 use crate::segmenter::Segmenter;
 use crate::smooth::SmoothSettings;
@@ -80,6 +81,8 @@ enum Work {
         path: PathBuf,
         image: RasterImage,
         prediction: Prediction,
+        /// Passed on to TIFF maps.
+        tags: Vec<TiffTag>,
         started: Instant,
     },
     /// Streamed: its maps are written, its record is not.
@@ -175,6 +178,7 @@ impl BatchJob<'_> {
                             path,
                             image,
                             prediction,
+                            tags,
                             started,
                         } => {
                             let stem = stem_of(&path);
@@ -185,6 +189,7 @@ impl BatchJob<'_> {
                                 &prediction,
                                 &model.classes,
                                 &self.options,
+                                &tags,
                             )?;
                             let size = (image.width, image.height);
                             let mask = match self.roi {
@@ -235,10 +240,11 @@ impl BatchJob<'_> {
                     }
                 };
                 let work = match work {
-                    Done::Whole(image, prediction) => Work::Image {
+                    Done::Whole(image, prediction, tags) => Work::Image {
                         path,
                         image,
                         prediction,
+                        tags,
                         started,
                     },
                     Done::Streamed(streamed) => Work::Streamed {
@@ -269,7 +275,7 @@ impl BatchJob<'_> {
 /// One image predicted by the main loop of [`BatchJob::run`].
 enum Done {
     /// Whole: the maps are for the writer thread to write.
-    Whole(RasterImage, Prediction),
+    Whole(RasterImage, Prediction, Vec<TiffTag>),
     /// Streamed: maps already written.
     Streamed(Streamed),
 }
@@ -303,6 +309,8 @@ impl BatchJob<'_> {
             *warned = true;
             tx.send(Work::Warning(colour_mismatch(path, grey))).is_ok()
         };
+        // Read before the work, so a damaged TIFF directory fails in seconds, not after it.
+        let tags = pass_through_tags(path, &self.options)?;
         let (done, size, moments) = match self.stream_source(path)? {
             Some(source) => {
                 if !colour(source.channels() == 1) {
@@ -326,6 +334,7 @@ impl BatchJob<'_> {
                     &stem,
                     self.tile,
                     &self.options,
+                    &tags,
                     roi,
                     on_rows,
                 )?;
@@ -343,7 +352,7 @@ impl BatchJob<'_> {
                     .smooth_all(&image, probs, std::slice::from_ref(&self.smoothing))
                     .remove(0);
                 let size = (image.width, image.height);
-                (Done::Whole(image, prediction), size, moments)
+                (Done::Whole(image, prediction, tags), size, moments)
             }
         };
         if let Some(w) = unlike_training(model, path, size, &moments, unlike) {

@@ -16,6 +16,7 @@ use crate::eval::areas::{count_classes, MaskRows};
 use crate::eval::drift::FeatureMoments;
 use crate::features::stack::Rect;
 use crate::imageio::stream::{BandReader, RowSource};
+use crate::imageio::tiff_tags::TiffTag;
 use crate::imageio::RasterImage;
 use crate::outputs::stream::MapWriters;
 use crate::outputs::OutputOptions;
@@ -53,7 +54,7 @@ pub struct Streamed {
 }
 
 /// Segments the image `source` delivers in tiles of `tile` pixels and writes its maps under
-/// `out_dir` as they are made; `roi` restricts the counts. `on_rows(done, total)` is told after
+/// `out_dir` as they are made (TIFF maps with `tags`); `roi` restricts the counts. `on_rows(done, total)` is told after
 /// every band how many rows are finished.
 #[allow(clippy::too_many_arguments)]
 pub fn segment_streamed(
@@ -63,6 +64,7 @@ pub fn segment_streamed(
     stem: &str,
     tile: usize,
     opts: &OutputOptions,
+    tags: &[TiffTag],
     mut roi: Option<MaskRows>,
     mut on_rows: impl FnMut(usize, usize),
 ) -> Result<Streamed> {
@@ -72,7 +74,7 @@ pub fn segment_streamed(
     let k = model.classes.len();
     let mut moments = FeatureMoments::new(model.features.n_features());
     let mut counts = vec![0u64; k];
-    let mut writers = MapWriters::create(out_dir, stem, (w, h), &model.classes, opts)?;
+    let mut writers = MapWriters::create(out_dir, stem, (w, h), &model.classes, opts, tags)?;
     let (read, written) = std::thread::scope(|scope| {
         let (tx, rx) = sync_channel::<(RasterImage, Prediction)>(1);
         let writer = scope.spawn(move || -> Result<Vec<PathBuf>> {

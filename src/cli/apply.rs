@@ -11,7 +11,8 @@ use crate::cli::SmoothArgs;
 use crate::dataset::stem_of;
 use crate::error::{GroveError, Result};
 use crate::eval::areas::{AreaTable, PixelSize, RoiMasks};
-use crate::outputs::{OutputOptions, OutputPaths};
+use crate::outputs::MapFormat;
+use crate::outputs::{OutputOptions, OutputPaths, ProbabilityFormat};
 use crate::progress::Progress;
 
 #[derive(Args, Debug)]
@@ -35,9 +36,25 @@ pub struct ApplyArgs {
     /// bright = unsure).
     #[arg(long)]
     pub uncertainty: bool,
-    /// Also write one probability map per class.
+    /// Also write the class probabilities: `maps` (the default when no value is given) = one
+    /// 8-bit map per class in the --map-format; `npy` = one float32 array per image
+    /// (height × width × classes, for numpy.load). Put it after the inputs, or write
+    /// --probabilities=npy: just before an input it takes that for a format.
+    #[arg(
+        long,
+        value_name = "FORMAT",
+        num_args = 0..=1,
+        default_missing_value = "maps"
+    )]
+    pub probabilities: Option<ProbabilityFormat>,
+    /// File format of the maps (labels, overlays, confidence, uncertainty, probability maps):
+    /// png, or tiff = tiled, Deflate-compressed TIFF (BigTIFF when it could pass 4 GiB) that
+    /// keeps a TIFF input's resolution and GeoTIFF tags.
+    #[arg(long, value_name = "FORMAT", default_value = "png")]
+    pub map_format: MapFormat,
+    /// With --map-format tiff: write BigTIFF even when a map would fit a standard TIFF.
     #[arg(long)]
-    pub probabilities: bool,
+    pub bigtiff: bool,
     /// Skip the colour overlays.
     #[arg(long)]
     pub no_overlay: bool,
@@ -127,7 +144,9 @@ fn check_outputs(
         .chain(&args.inputs)
         .map(PathBuf::as_path)
         .chain(std::iter::once(args.model.as_path()));
-    let guard = crate::output_guard::OutputGuard::new(inputs, args.force);
+    let guard = crate::output_guard::OutputGuard::new(inputs.clone(), args.force);
+    // For files a record of grove's lists: only the rules that hold even with --force.
+    let recorded_guard = crate::output_guard::OutputGuard::new(inputs, true);
     guard.check_dir(&args.out)?;
     for own in ["classes.toml", "areas.csv", "areas.json"] {
         guard.check_file(&args.out.join(own))?;
@@ -137,6 +156,7 @@ fn check_outputs(
         let stem = stem_of(image);
         let paths = OutputPaths::new(&args.out, &stem, classes, opts);
         let record = records.path(&stem);
+        let recorded = records.recorded_outputs(&stem);
         for p in paths.all().into_iter().chain([record.as_path()]) {
             if let Some(prev) = seen.insert(p.to_path_buf(), image) {
                 return Err(GroveError::input(
@@ -148,7 +168,11 @@ fn check_outputs(
                     ),
                 ));
             }
-            guard.check_file(p)?;
+            if recorded.iter().any(|r| r == p) {
+                recorded_guard.check_file(p)?;
+            } else {
+                guard.check_file(p)?;
+            }
         }
     }
     Ok(())
@@ -187,6 +211,11 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
         )));
     }
     crate::tiling::check_tile(args.tile)?;
+    if args.bigtiff && args.map_format != MapFormat::Tiff {
+        return Err(GroveError::Config(
+            "--bigtiff applies to TIFF maps; add --map-format tiff".into(),
+        ));
+    }
     let (model, model_sha256) = crate::model::load_with_sha256(&args.model)?;
     let smoothing = args.smoothing.settings(&model.smoothing)?;
     let all = list_inputs(&args.inputs)?;
@@ -210,10 +239,13 @@ pub fn run(args: ApplyArgs, progress: Progress) -> Result<()> {
         options: OutputOptions {
             overlay: !args.no_overlay,
             confidence: args.confidence,
-            probabilities: args.probabilities,
+            probabilities: args.probabilities.is_some(),
             uncertainty: args.uncertainty,
             overlay_opacity: args.opacity,
             untinted,
+            probability_format: args.probabilities.unwrap_or_default(),
+            map_format: args.map_format,
+            bigtiff: args.bigtiff,
         },
         shard: args.shard,
         force: args.force,

@@ -10,7 +10,7 @@ use crate::demo::write_demo_dataset;
 use crate::error::Result;
 use crate::eval::areas::{count_classes, AreaTable};
 use crate::eval::score::{evaluate_smoothed, MetricsReport};
-use crate::eval::smoothing_strength::choose_strength;
+use crate::eval::smoothing_strength::choose_strength_reusing;
 use crate::imageio::{read_image, write_atomic, RasterImage};
 use crate::outputs::{write_outputs, OutputOptions};
 use crate::prediction::{describe, Prediction};
@@ -72,8 +72,16 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
     };
     let t_train = Instant::now();
     let entries = train.labelled();
-    let choice = choose_strength(&cfg, &train, &entries, SmoothMethod::Expansion, progress)?;
-    let mut model = cfg.fit(&train, &entries, progress)?;
+    let (mut model, rows) = cfg.fit_keeping_rows(&train, &entries, progress)?;
+    let choice = choose_strength_reusing(
+        &model,
+        &rows,
+        &train,
+        &entries,
+        SmoothMethod::Expansion,
+        progress,
+    )?;
+    drop(rows);
     if let Some(c) = &choice {
         model.smoothing = c.default();
         println!(
@@ -99,7 +107,7 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
     };
     let areas = std::cell::RefCell::new(AreaTable::new(model.classes.names(), None));
     let deliver = |e: &ImageEntry, img: &RasterImage, pred: &Prediction| {
-        let index = write_outputs(&pred_dir, &e.stem, img, pred, &model.classes, &opts)?.index;
+        let index = write_outputs(&pred_dir, &e.stem, img, pred, &model.classes, &opts, &[])?.index;
         let counts = count_classes(&index, model.classes.len(), None);
         areas.borrow_mut().add_counts(&e.stem, &counts);
         Ok(())

@@ -1,6 +1,6 @@
 //! Turning a label file into a map of class indices.
 //!
-//! Two encodings are accepted: single-channel (grey or palette-indexed PNG, pixel value =
+//! Two encodings are accepted: single-channel (grey or palette-indexed PNG or TIFF, pixel value =
 //! class id, one reserved value = unlabelled) and colour-coded RGB(A) through the class
 //! table's colours (fully transparent pixels = unlabelled). Sparse scribbles are normal, so
 //! unlabelled pixels are simply skipped downstream.
@@ -10,7 +10,7 @@ use std::path::Path;
 
 use crate::dataset::classes::{hex_colour, ClassTable};
 use crate::error::{GroveError, Result};
-use crate::imageio::{read_label_png, LabelPixels};
+use crate::imageio::{read_label_file, LabelPixels};
 
 /// The class index stored for pixels without a label.
 pub const UNLABELLED: u8 = 255;
@@ -54,9 +54,9 @@ impl LabelMap {
     }
 }
 
-/// Reads and decodes a label PNG through the class table.
+/// Reads and decodes a label file (PNG or TIFF) through the class table.
 pub fn read_labels(path: &Path, table: &ClassTable, opts: &LabelOptions) -> Result<LabelMap> {
-    let file = read_label_png(path)?;
+    let file = read_label_file(path)?;
     let indices =
         decode(&file.pixels, file.width, table, opts).map_err(|m| GroveError::input(path, m))?;
     Ok(LabelMap {
@@ -75,7 +75,7 @@ pub fn read_labels_for(
     size: (usize, usize),
 ) -> Result<LabelMap> {
     // Header first: a label that declares another size is refused before it is decoded.
-    let declared = crate::imageio::probe_label_png(path)?;
+    let declared = crate::imageio::probe_label_file(path)?;
     if declared != size {
         return Err(GroveError::input(
             path,

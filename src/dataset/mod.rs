@@ -1,4 +1,4 @@
-//! A dataset folder: `images/` (PNG, JPEG, TIFF), `labels/` (PNG, same file stem) and
+//! A dataset folder: `images/` (PNG, JPEG, TIFF), `labels/` (PNG or TIFF, same file stem) and
 //! `classes.toml`. Images without a label file are allowed (they are only applied to).
 
 pub mod classes;
@@ -21,6 +21,9 @@ pub struct ImageEntry {
     pub image: PathBuf,
     pub labels: Option<PathBuf>,
 }
+
+/// Label file extensions, in the order they are looked for.
+const LABEL_EXTENSIONS: [&str; 3] = ["png", "tif", "tiff"];
 
 /// An opened dataset folder (class table read and validated, files paired by stem).
 #[derive(Clone, Debug)]
@@ -77,7 +80,8 @@ pub fn stem_of(path: &Path) -> String {
 }
 
 impl Dataset {
-    /// Opens `root`, reading `classes.toml` and pairing `images/X.*` with `labels/X.png`.
+    /// Opens `root`, reading `classes.toml` and pairing `images/X.*` with `labels/X.png` (or
+    /// `labels/X.tif`, `labels/X.tiff`).
     pub fn open(root: &Path, label_options: LabelOptions) -> Result<Dataset> {
         let images_dir = root.join("images");
         if !images_dir.is_dir() {
@@ -114,11 +118,15 @@ impl Dataset {
                     ),
                 ));
             }
-            let label = labels_dir.join(format!("{stem}.png"));
+            // PNG first; a TIFF (such as a corrected `--map-format tiff` label map) otherwise.
+            let label = LABEL_EXTENSIONS
+                .iter()
+                .map(|ext| labels_dir.join(format!("{stem}.{ext}")))
+                .find(|p| p.is_file());
             entries.push(ImageEntry {
                 stem,
                 image,
-                labels: label.is_file().then_some(label),
+                labels: label,
             });
         }
         if entries.is_empty() {
@@ -130,12 +138,20 @@ impl Dataset {
         if labels_dir.is_dir() {
             for label in list_images(&labels_dir)? {
                 let stem = stem_of(&label);
-                let is_png = label
+                let lossless = label
                     .extension()
-                    .is_some_and(|e| e.eq_ignore_ascii_case("png"));
-                if !is_png {
+                    .is_some_and(|e| LABEL_EXTENSIONS.iter().any(|ok| e.eq_ignore_ascii_case(ok)));
+                let used = entries
+                    .iter()
+                    .any(|e| e.labels.as_deref() == Some(label.as_path()));
+                if !lossless {
                     warnings.push(format!(
-                        "{}: label files must be PNG (lossy formats change class values); ignored",
+                        "{}: label files must be PNG or TIFF (lossy formats change class values); ignored",
+                        label.display()
+                    ));
+                } else if !used && entries.iter().any(|e| e.stem == stem) {
+                    warnings.push(format!(
+                        "{}: another label file of this image comes first (PNG, then .tif, then .tiff); ignored",
                         label.display()
                     ));
                 } else if !entries.iter().any(|e| e.stem == stem) {

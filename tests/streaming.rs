@@ -191,3 +191,54 @@ fn streamed_apply_equals_whole_image_apply() {
         }
     }
 }
+
+/// With smoothing on (the models' default) the streamed path smooths band by band in tiles
+/// with a halo, as the whole-image path does with the same `--tile`: the same files, byte for
+/// byte, for both solvers (mean-field's smoothed probabilities go into the confidence maps).
+#[test]
+fn streamed_smoothing_equals_whole_image_smoothing() {
+    let t = tempfile::tempdir().unwrap();
+    let model = train_small(t.path());
+    let (images, roi) = (t.path().join("in"), t.path().join("roi"));
+    write_inputs(&images, &roi);
+    for method in ["expansion", "meanfield"] {
+        let run = |above: usize, out: &Path| {
+            grove(
+                above,
+                &[
+                    "apply",
+                    model.to_str().unwrap(),
+                    images.to_str().unwrap(),
+                    "--out",
+                    out.to_str().unwrap(),
+                    "--tile",
+                    "40",
+                    "--smooth",
+                    method,
+                    "--confidence",
+                    "--roi",
+                    roi.to_str().unwrap(),
+                    "--log-json",
+                ],
+            )
+        };
+        let whole_dir = t.path().join(format!("whole-{method}"));
+        let stream_dir = t.path().join(format!("stream-{method}"));
+        let (whole_log, _) = run(usize::MAX, &whole_dir);
+        let (stream_log, _) = run(0, &stream_dir);
+        assert_eq!(streamed_flags(&whole_log), [false; 4]);
+        assert_eq!(streamed_flags(&stream_log), [true; 4]);
+        let (a, b) = (files(&whole_dir), files(&stream_dir));
+        assert_eq!(a.keys().collect::<Vec<_>>(), b.keys().collect::<Vec<_>>());
+        for (name, bytes) in &a {
+            if name.starts_with("done/") {
+                assert_eq!(comparable(bytes), comparable(&b[name]), "{name}");
+            } else {
+                assert!(
+                    bytes == &b[name],
+                    "{method}: {name} differs between the paths"
+                );
+            }
+        }
+    }
+}

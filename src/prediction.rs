@@ -113,7 +113,7 @@ impl ImageContrast {
             return probs.into();
         }
         let (w, h) = (probs.width, probs.height);
-        if tile == 0 || (w <= tile && h <= tile) {
+        if tile == 0 || (w <= tile && h <= crate::tiling::band_rows(w, tile)) {
             let s = smooth(&probs, &self.lab, settings, Some(self.beta));
             return Prediction {
                 labels: s.labels,
@@ -125,8 +125,9 @@ impl ImageContrast {
         let mut labels = Vec::with_capacity(w * h);
         let mut data = Vec::with_capacity(w * h * k);
         // Pushed a band at a time so only one band of the image is copied at once.
-        for y in (0..h).step_by(tile) {
-            let rows = tile.min(h - y);
+        let step = crate::tiling::band_rows(w, tile);
+        for y in (0..h).step_by(step) {
+            let rows = step.min(h - y);
             let lab: Vec<Plane> = self
                 .lab
                 .iter()

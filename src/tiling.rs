@@ -32,6 +32,17 @@ use crate::segmenter::{Probabilities, Segmenter};
 /// (~1.4 GB at 2048). A timed comparison of tile sizes is still to be done (issue 7).
 pub const DEFAULT_TILE: usize = 1024;
 
+/// Most core pixels in one band of tiles (8 Mi = 8192 × 1024): wider images get shorter tiles
+/// (never below [`MIN_TILE`] rows), which bounds the rows a streamed image holds. Measured
+/// (`scripts/memory.sh`, default model, smoothing on): a 16000-pixel-wide image peaked at
+/// 2.9 GB with 1024-row bands (16 Mi pixels), above the 2 GiB aim.
+pub const BAND_PIXELS: usize = 8 << 20;
+
+/// Tile rows for an image `width` pixels wide and tiles of side `tile` (> 0).
+pub fn band_rows(width: usize, tile: usize) -> usize {
+    tile.min((BAND_PIXELS / width.max(1)).max(MIN_TILE))
+}
+
 /// Smallest accepted tile side: below this the halo dominates the work many times over.
 pub const MIN_TILE: usize = 16;
 
@@ -99,12 +110,15 @@ impl TileGrid {
         }
     }
 
-    /// Tile side along x and y (the whole image for `tile == 0`).
+    /// Tile side along x and y (the whole image for `tile == 0`). Tiles are `tile` pixels
+    /// wide and at most `tile` tall, but a band (one row of tiles) holds at most
+    /// [`BAND_PIXELS`] core pixels: streaming keeps about two bands of rows in memory, so
+    /// without this cap memory would grow with the image's width.
     fn sides(&self) -> (usize, usize) {
         if self.tile == 0 {
             (self.width.max(1), self.height.max(1))
         } else {
-            (self.tile, self.tile)
+            (self.tile, band_rows(self.width, self.tile))
         }
     }
 
@@ -284,6 +298,18 @@ mod tests {
             }
             assert!(seen.iter().all(|&n| n == 1), "{w}x{h} tile {t}");
         }
+    }
+
+    #[test]
+    fn wide_images_get_shorter_bands() {
+        assert_eq!(band_rows(8000, 1024), 1024);
+        assert_eq!(band_rows(16000, 1024), BAND_PIXELS / 16000);
+        assert_eq!(band_rows(100_000_000, 1024), MIN_TILE);
+        let grid = TileGrid::new(16000, 3000, 1024, 40);
+        let bands = grid.bands();
+        assert_eq!(bands[0].core.height, 524);
+        assert!(bands.iter().all(|b| b.core.area() <= BAND_PIXELS));
+        assert_eq!(bands[0].tiles[0].core.width, 1024);
     }
 
     #[test]

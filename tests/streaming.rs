@@ -242,3 +242,30 @@ fn streamed_smoothing_equals_whole_image_smoothing() {
         }
     }
 }
+
+/// A streamed image needs memory by the tile, so the memory-derived size limit does not apply
+/// to it, but a limit the user gives with `--max-megapixels` does, with the file named.
+#[test]
+fn an_explicit_size_limit_applies_to_streamed_images() {
+    let t = tempfile::tempdir().unwrap();
+    let model = train_small(t.path());
+    let (images, roi) = (t.path().join("in"), t.path().join("roi"));
+    write_inputs(&images, &roi);
+    let image = images.join("rgb8.png");
+    let out = t.path().join("out");
+    let run = Command::new(env!("CARGO_BIN_EXE_grove"))
+        .env("GROVE_STREAM_ABOVE_PIXELS", "0")
+        .args(["--max-megapixels", "0.01", "apply"])
+        .args([&model, &image])
+        .arg("--out")
+        .arg(&out)
+        .output()
+        .unwrap();
+    let stderr = String::from_utf8_lossy(&run.stderr);
+    assert_eq!(run.status.code(), Some(3), "{stderr}");
+    assert!(
+        stderr.contains("rgb8.png") && stderr.contains("above --max-megapixels 0.010"),
+        "{stderr}"
+    );
+    assert!(!out.join("labels").join("rgb8.png").exists());
+}

@@ -284,7 +284,14 @@ impl BatchJob<'_> {
         if self.tile == 0 {
             return Ok(None);
         }
-        Ok(open_streamable(path)?.filter(|s| s.width() * s.height() > stream_above_pixels()))
+        let Some(source) =
+            open_streamable(path)?.filter(|s| s.width() * s.height() > stream_above_pixels())
+        else {
+            return Ok(None);
+        };
+        let (w, h) = (source.width() as u64, source.height() as u64);
+        crate::image_check::check_streamed_size(path, w, h)?;
+        Ok(Some(source))
     }
 
     /// Predicts one image, whole or streamed, sending its warnings and progress to `tx`.

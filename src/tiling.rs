@@ -27,9 +27,13 @@ use crate::features::stack::{Placement, Rect};
 use crate::imageio::RasterImage;
 use crate::segmenter::{Probabilities, Segmenter};
 
-/// Default tile side for `apply` and `eval` (pixels). Estimated, not yet measured: at 1024
-/// the halo adds ~16 % feature work (33 % at 512) and a tile's 78-feature stack is ~0.4 GB
-/// (~1.4 GB at 2048). A timed comparison of tile sizes is still to be done (issue 7).
+/// Default tile side for `apply` and `eval` (pixels). Measured on a 16-megapixel demo mosaic
+/// (4000², the demo's default model, smoothing on, one run per size on the shared 2-core
+/// machine at load 8–9): tile 512 took 96.5 CPU s and peaked at 510 MiB, tile 1024 103.7 CPU s
+/// and 1109 MiB. By area the halo adds 33 % feature work at 512 and 16 % at 1024 (39-pixel
+/// halo), yet 512 was not slower here, so one run each does not separate them; 1024 stays the
+/// default because the README's memory table, measured with it, keeps every size up to 256
+/// megapixels under 2 GiB (bands are capped at [`BAND_PIXELS`]). 2048 was not measured.
 pub const DEFAULT_TILE: usize = 1024;
 
 /// Most core pixels in one band of tiles (8 Mi = 8192 × 1024): wider images get shorter tiles

@@ -19,8 +19,10 @@ use crate::smooth::{contrast_beta, smooth, SmoothSettings};
 use crate::tiling::{Band, TileGrid};
 
 /// Halo in pixels added around each tile for smoothing. Mean-field without the spatial
-/// kernel reaches one pixel per iteration, so with the default 5 iterations it is exact;
-/// alpha-expansion is global, and 32 keeps its differences rare (README, "Tiles").
+/// kernel reaches at most 4 pixels per iteration (one per colour class of its schedule), so
+/// with the default 5 iterations 32 pixels cover its reach (the order of updates still depends
+/// on the window's parity, so this is not exact by construction); alpha-expansion is global.
+/// Measured differences from whole-image smoothing: README, "Huge images".
 pub const SMOOTH_HALO: usize = 32;
 
 /// One band of smoothed rows: the band's core rows, the full image width.

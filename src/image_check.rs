@@ -51,6 +51,31 @@ pub fn max_pixels() -> u64 {
     }
 }
 
+/// The limit given with `--max-megapixels`, if any. Images that `apply` streams need memory
+/// by the tile, not by the image, so only a limit the user asked for applies to them.
+pub fn explicit_max_pixels() -> Option<u64> {
+    match MAX_PIXELS.load(Ordering::Relaxed) {
+        0 => None,
+        n => Some(n),
+    }
+}
+
+/// Refuses a streamed image above an explicit `--max-megapixels` ([`explicit_max_pixels`]).
+pub fn check_streamed_size(path: &Path, width: u64, height: u64) -> Result<()> {
+    let pixels = width.saturating_mul(height);
+    match explicit_max_pixels() {
+        Some(limit) if pixels > limit => Err(GroveError::input(
+            path,
+            format!(
+                "image is {width}x{height} ({} megapixels), above --max-megapixels {}",
+                megapixels(pixels),
+                megapixels(limit)
+            ),
+        )),
+        _ => Ok(()),
+    }
+}
+
 /// 47.9, or 0.001 for small limits.
 fn megapixels(pixels: u64) -> String {
     let mp = pixels as f64 / 1e6;
@@ -87,7 +112,7 @@ pub fn size_problem(width: u64, height: u64) -> Option<String> {
     let limit = max_pixels();
     if pixels > limit {
         return Some(format!(
-                "image is {width}x{height} ({} megapixels), above the limit of {} megapixels; segmenting it would need about {} of memory ({} available). Crop or downscale it, or raise the limit with --max-megapixels (large images are not yet processed in tiles)",
+                "image is {width}x{height} ({} megapixels), above the limit of {} megapixels; segmenting it would need about {} of memory ({} available). Crop or downscale it, or raise the limit with --max-megapixels (grove apply reads PNG and TIFF images in pieces, with --tile > 0, and needs no such memory for them)",
                 megapixels(pixels),
                 megapixels(limit),
                 gib(pixels.saturating_mul(BYTES_PER_PIXEL)),

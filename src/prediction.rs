@@ -10,6 +10,7 @@ use serde::{Deserialize, Serialize};
 use crate::imageio::RasterImage;
 use crate::plane::Plane;
 use crate::segmenter::{Probabilities, Segmenter};
+use crate::smooth::tiles::{TiledSmoother, SMOOTH_HALO};
 use crate::smooth::{contrast_beta, smooth, SmoothMethod, SmoothSettings};
 
 /// The smoothing a model applies unless told otherwise: only method and strength are stored
@@ -100,15 +101,57 @@ impl ImageContrast {
         ImageContrast { lab, beta }
     }
 
-    /// Smooths `probs` with `settings` (expected validated).
-    pub fn smooth(&self, probs: Probabilities, settings: &SmoothSettings) -> Prediction {
+    /// Smooths `probs` with `settings` (expected validated), in tiles of `tile` pixels with
+    /// a halo of [`SMOOTH_HALO`] (`tile` = 0, or an image within one tile: whole).
+    pub fn smooth(
+        &self,
+        probs: Probabilities,
+        settings: &SmoothSettings,
+        tile: usize,
+    ) -> Prediction {
         if settings.method == SmoothMethod::None {
             return probs.into();
         }
-        let s = smooth(&probs, &self.lab, settings, Some(self.beta));
+        let (w, h) = (probs.width, probs.height);
+        if tile == 0 || (w <= tile && h <= crate::tiling::band_rows(w, tile)) {
+            let s = smooth(&probs, &self.lab, settings, Some(self.beta));
+            return Prediction {
+                labels: s.labels,
+                probabilities: s.probabilities.unwrap_or(probs),
+            };
+        }
+        let k = probs.n_classes;
+        let mut smoother = TiledSmoother::new(settings, self.beta, (w, h), k, tile, SMOOTH_HALO);
+        let mut labels = Vec::with_capacity(w * h);
+        let mut data = Vec::with_capacity(w * h * k);
+        // Pushed a band at a time so only one band of the image is copied at once.
+        let step = crate::tiling::band_rows(w, tile);
+        for y in (0..h).step_by(step) {
+            let rows = step.min(h - y);
+            let lab: Vec<Plane> = self
+                .lab
+                .iter()
+                .map(|p| Plane::from_vec(w, rows, p.data[y * w..(y + rows) * w].to_vec()))
+                .collect();
+            let band = Probabilities {
+                width: w,
+                height: rows,
+                n_classes: k,
+                data: probs.data[y * w * k..(y + rows) * w * k].to_vec(),
+            };
+            for done in smoother.push(&lab, &band) {
+                labels.extend(done.labels);
+                data.extend(done.probabilities.data);
+            }
+        }
         Prediction {
-            labels: s.labels,
-            probabilities: s.probabilities.unwrap_or(probs),
+            labels,
+            probabilities: Probabilities {
+                width: w,
+                height: h,
+                n_classes: k,
+                data,
+            },
         }
     }
 }
@@ -124,7 +167,7 @@ impl Segmenter {
         settings: &[SmoothSettings],
     ) -> Vec<Prediction> {
         let probs = crate::tiling::predict_tiled(self, image, tile);
-        self.smooth_all(image, probs, settings)
+        self.smooth_all(image, probs, tile, settings)
     }
 
     /// One prediction under `settings` (validated).
@@ -139,12 +182,14 @@ impl Segmenter {
             .expect("one setting gives one prediction")
     }
 
-    /// `probs` (of `image`) under each of `settings`. Alpha-expansion runs on one thread, so
+    /// `probs` (of `image`) under each of `settings`, smoothed in tiles of `tile` pixels
+    /// (0 = whole; see [`ImageContrast::smooth`]). Alpha-expansion runs on one thread, so
     /// several settings are smoothed in parallel; a single one takes `probs` by move.
     pub fn smooth_all(
         &self,
         image: &RasterImage,
         probs: Probabilities,
+        tile: usize,
         settings: &[SmoothSettings],
     ) -> Vec<Prediction> {
         let contrast = settings
@@ -152,7 +197,7 @@ impl Segmenter {
             .any(|s| s.method != SmoothMethod::None)
             .then(|| ImageContrast::new(self, image));
         let one = |p: Probabilities, s: &SmoothSettings| match &contrast {
-            Some(c) => c.smooth(p, s),
+            Some(c) => c.smooth(p, s, tile),
             None => p.into(),
         };
         match settings {

@@ -27,10 +27,25 @@ use crate::features::stack::{Placement, Rect};
 use crate::imageio::RasterImage;
 use crate::segmenter::{Probabilities, Segmenter};
 
-/// Default tile side for `apply` and `eval` (pixels). Estimated, not yet measured: at 1024
-/// the halo adds ~16 % feature work (33 % at 512) and a tile's 78-feature stack is ~0.4 GB
-/// (~1.4 GB at 2048). A timed comparison of tile sizes is still to be done (issue 7).
+/// Default tile side for `apply` and `eval` (pixels). Measured on a 16-megapixel demo mosaic
+/// (4000², the demo's default model, smoothing on, one run per size on the shared 2-core
+/// machine at load 8–9): tile 512 took 96.5 CPU s and peaked at 510 MiB, tile 1024 103.7 CPU s
+/// and 1109 MiB. By area the halo adds 33 % feature work at 512 and 16 % at 1024 (39-pixel
+/// halo), yet 512 was not slower here, so one run each does not separate them; 1024 stays the
+/// default because the README's memory table, measured with it, keeps every size up to 256
+/// megapixels under 2 GiB (bands are capped at [`BAND_PIXELS`]). 2048 was not measured.
 pub const DEFAULT_TILE: usize = 1024;
+
+/// Most core pixels in one band of tiles (8 Mi = 8192 × 1024): wider images get shorter tiles
+/// (never below [`MIN_TILE`] rows), which bounds the rows a streamed image holds. Measured
+/// (`scripts/memory.sh`, default model, smoothing on): a 16000-pixel-wide image peaked at
+/// 2.9 GB with 1024-row bands (16 Mi pixels), above the 2 GiB aim.
+pub const BAND_PIXELS: usize = 8 << 20;
+
+/// Tile rows for an image `width` pixels wide and tiles of side `tile` (> 0).
+pub fn band_rows(width: usize, tile: usize) -> usize {
+    tile.min((BAND_PIXELS / width.max(1)).max(MIN_TILE))
+}
 
 /// Smallest accepted tile side: below this the halo dominates the work many times over.
 pub const MIN_TILE: usize = 16;
@@ -99,12 +114,15 @@ impl TileGrid {
         }
     }
 
-    /// Tile side along x and y (the whole image for `tile == 0`).
+    /// Tile side along x and y (the whole image for `tile == 0`). Tiles are `tile` pixels
+    /// wide and at most `tile` tall, but a band (one row of tiles) holds at most
+    /// [`BAND_PIXELS`] core pixels: streaming keeps about two bands of rows in memory, so
+    /// without this cap memory would grow with the image's width.
     fn sides(&self) -> (usize, usize) {
         if self.tile == 0 {
             (self.width.max(1), self.height.max(1))
         } else {
-            (self.tile, self.tile)
+            (self.tile, band_rows(self.width, self.tile))
         }
     }
 
@@ -284,6 +302,18 @@ mod tests {
             }
             assert!(seen.iter().all(|&n| n == 1), "{w}x{h} tile {t}");
         }
+    }
+
+    #[test]
+    fn wide_images_get_shorter_bands() {
+        assert_eq!(band_rows(8000, 1024), 1024);
+        assert_eq!(band_rows(16000, 1024), BAND_PIXELS / 16000);
+        assert_eq!(band_rows(100_000_000, 1024), MIN_TILE);
+        let grid = TileGrid::new(16000, 3000, 1024, 40);
+        let bands = grid.bands();
+        assert_eq!(bands[0].core.height, 524);
+        assert!(bands.iter().all(|b| b.core.area() <= BAND_PIXELS));
+        assert_eq!(bands[0].tiles[0].core.width, 1024);
     }
 
     #[test]

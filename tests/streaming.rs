@@ -191,3 +191,81 @@ fn streamed_apply_equals_whole_image_apply() {
         }
     }
 }
+
+/// With smoothing on (the models' default) the streamed path smooths band by band in tiles
+/// with a halo, as the whole-image path does with the same `--tile`: the same files, byte for
+/// byte, for both solvers (mean-field's smoothed probabilities go into the confidence maps).
+#[test]
+fn streamed_smoothing_equals_whole_image_smoothing() {
+    let t = tempfile::tempdir().unwrap();
+    let model = train_small(t.path());
+    let (images, roi) = (t.path().join("in"), t.path().join("roi"));
+    write_inputs(&images, &roi);
+    for method in ["expansion", "meanfield"] {
+        let run = |above: usize, out: &Path| {
+            grove(
+                above,
+                &[
+                    "apply",
+                    model.to_str().unwrap(),
+                    images.to_str().unwrap(),
+                    "--out",
+                    out.to_str().unwrap(),
+                    "--tile",
+                    "40",
+                    "--smooth",
+                    method,
+                    "--confidence",
+                    "--roi",
+                    roi.to_str().unwrap(),
+                    "--log-json",
+                ],
+            )
+        };
+        let whole_dir = t.path().join(format!("whole-{method}"));
+        let stream_dir = t.path().join(format!("stream-{method}"));
+        let (whole_log, _) = run(usize::MAX, &whole_dir);
+        let (stream_log, _) = run(0, &stream_dir);
+        assert_eq!(streamed_flags(&whole_log), [false; 4]);
+        assert_eq!(streamed_flags(&stream_log), [true; 4]);
+        let (a, b) = (files(&whole_dir), files(&stream_dir));
+        assert_eq!(a.keys().collect::<Vec<_>>(), b.keys().collect::<Vec<_>>());
+        for (name, bytes) in &a {
+            if name.starts_with("done/") {
+                assert_eq!(comparable(bytes), comparable(&b[name]), "{name}");
+            } else {
+                assert!(
+                    bytes == &b[name],
+                    "{method}: {name} differs between the paths"
+                );
+            }
+        }
+    }
+}
+
+/// A streamed image needs memory by the tile, so the memory-derived size limit does not apply
+/// to it, but a limit the user gives with `--max-megapixels` does, with the file named.
+#[test]
+fn an_explicit_size_limit_applies_to_streamed_images() {
+    let t = tempfile::tempdir().unwrap();
+    let model = train_small(t.path());
+    let (images, roi) = (t.path().join("in"), t.path().join("roi"));
+    write_inputs(&images, &roi);
+    let image = images.join("rgb8.png");
+    let out = t.path().join("out");
+    let run = Command::new(env!("CARGO_BIN_EXE_grove"))
+        .env("GROVE_STREAM_ABOVE_PIXELS", "0")
+        .args(["--max-megapixels", "0.01", "apply"])
+        .args([&model, &image])
+        .arg("--out")
+        .arg(&out)
+        .output()
+        .unwrap();
+    let stderr = String::from_utf8_lossy(&run.stderr);
+    assert_eq!(run.status.code(), Some(3), "{stderr}");
+    assert!(
+        stderr.contains("rgb8.png") && stderr.contains("above --max-megapixels 0.010"),
+        "{stderr}"
+    );
+    assert!(!out.join("labels").join("rgb8.png").exists());
+}

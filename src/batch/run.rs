@@ -5,7 +5,8 @@
 //! Encoding the PNGs of one image overlaps the decoding and prediction of the next: PNG
 //! coding is single-threaded, prediction uses every core. Images above
 //! [`stream_above_pixels`] are streamed instead when tiling is on ([`super::streamed`]): never
-//! decoded whole, written band by band, with the same files, counts and records.
+//! decoded whole, written band by band, with the same files, counts and records, smoothing
+//! on or off.
 
 use std::collections::HashMap;
 use std::path::PathBuf;
@@ -14,7 +15,9 @@ use std::time::Instant;
 
 use crate::batch::record::{ImageRecord, Records};
 use crate::batch::shard::Shard;
-use crate::batch::streamed::{segment_streamed, stream_above_pixels, Streamed};
+use crate::batch::streamed::{
+    segment_streamed, stream_above_pixels, streamed_beta, StreamSmoothing, Streamed,
+};
 use crate::dataset::stem_of;
 use crate::error::Result;
 use crate::eval::areas::{count_classes, AreaTable, RoiMasks};
@@ -284,11 +287,17 @@ impl BatchJob<'_> {
     /// The streamed reader of `path` when this image is to be streamed: tiling is on, the
     /// format can be read in pieces and the image is above [`stream_above_pixels`].
     fn stream_source(&self, path: &std::path::Path) -> Result<Option<Box<dyn RowSource>>> {
-        // Smoothing couples whole images; it is done on the whole-image path.
-        if self.tile == 0 || self.smoothing.method != crate::smooth::SmoothMethod::None {
+        if self.tile == 0 {
             return Ok(None);
         }
-        Ok(open_streamable(path)?.filter(|s| s.width() * s.height() > stream_above_pixels()))
+        let Some(source) =
+            open_streamable(path)?.filter(|s| s.width() * s.height() > stream_above_pixels())
+        else {
+            return Ok(None);
+        };
+        let (w, h) = (source.width() as u64, source.height() as u64);
+        crate::image_check::check_streamed_size(path, w, h)?;
+        Ok(Some(source))
     }
 
     /// Predicts one image, whole or streamed, sending its warnings and progress to `tx`.
@@ -327,12 +336,27 @@ impl BatchJob<'_> {
                         height,
                     });
                 };
+                let smoothing = match self.smoothing.method {
+                    crate::smooth::SmoothMethod::None => None,
+                    _ => {
+                        // A first pass over the rows for β; `stream_source` opened the file
+                        // once already, so it is streamable.
+                        let again = open_streamable(path)?.ok_or_else(|| {
+                            crate::error::GroveError::input(path, "changed while being read")
+                        })?;
+                        Some(StreamSmoothing {
+                            settings: self.smoothing.clone(),
+                            beta: streamed_beta(model, again)?,
+                        })
+                    }
+                };
                 let s = segment_streamed(
                     model,
                     source,
                     &self.out_dir,
                     &stem,
                     self.tile,
+                    smoothing,
                     &self.options,
                     &tags,
                     roi,
@@ -349,7 +373,12 @@ impl BatchJob<'_> {
                 let (probs, moments) =
                     crate::tiling::predict_tiled_moments(model, &image, self.tile);
                 let prediction = model
-                    .smooth_all(&image, probs, std::slice::from_ref(&self.smoothing))
+                    .smooth_all(
+                        &image,
+                        probs,
+                        self.tile,
+                        std::slice::from_ref(&self.smoothing),
+                    )
                     .remove(0);
                 let size = (image.width, image.height);
                 (Done::Whole(image, prediction, tags), size, moments)

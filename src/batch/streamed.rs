@@ -2,12 +2,16 @@
 //! (one row of tiles plus the halo rows, [`BandReader`]), predicted tile by tile
 //! ([`predict_band`], bit-identical to the whole image), and every map is written as it goes
 //! ([`MapWriters`]), on a second thread so PNG encoding overlaps the next band's prediction.
+//! With smoothing on, a band's tiles are smoothed ([`TiledSmoother`]) once the next band's
+//! probabilities supply the rows below its halo, with the whole image's contrast β from a
+//! first, cheap pass over the rows ([`streamed_beta`]).
 //! The image, its feature stack, its probabilities and its maps never exist whole: memory is
 //! bounded by the tile size times the image width.
 //!
 //! The files, area counts and drift moments are those of the whole-image path with the same
-//! tile size (`tests/streaming.rs` compares them byte for byte).
+//! tile size, smoothing on or off (`tests/streaming.rs` compares them byte for byte).
 
+use std::collections::VecDeque;
 use std::path::{Path, PathBuf};
 use std::sync::mpsc::sync_channel;
 
@@ -22,6 +26,8 @@ use crate::outputs::stream::MapWriters;
 use crate::outputs::OutputOptions;
 use crate::prediction::Prediction;
 use crate::segmenter::Segmenter;
+use crate::smooth::tiles::{TiledSmoother, SMOOTH_HALO};
+use crate::smooth::{ContrastSum, SmoothMethod, SmoothSettings};
 use crate::tiling::{predict_band, TileGrid};
 
 /// Images above this many pixels are streamed when tiling is on (`--tile` > 0): below it the
@@ -41,6 +47,40 @@ pub fn stream_above_pixels() -> usize {
         .unwrap_or(STREAM_ABOVE_PIXELS)
 }
 
+/// Rows read at a time by [`streamed_beta`].
+const BETA_CHUNK_ROWS: usize = 256;
+
+/// The contrast β of the image `source` delivers, in the model's colour mode, read a few rows
+/// at a time: the value, to the bit, that the whole-image path computes from the whole image.
+pub fn streamed_beta(model: &Segmenter, mut source: Box<dyn RowSource>) -> Result<f32> {
+    let (w, h) = (source.width(), source.height());
+    let mut sum = ContrastSum::default();
+    let mut y = 0;
+    while y < h {
+        let n = BETA_CHUNK_ROWS.min(h - y);
+        let mut rows = vec![Vec::new(); source.channels()];
+        source.read_rows(n, &mut rows)?;
+        let image = RasterImage {
+            width: w,
+            height: n,
+            channels: rows
+                .into_iter()
+                .map(|d| crate::plane::Plane::from_vec(w, n, d))
+                .collect(),
+        };
+        sum.push(&model.features.lab(&image));
+        y += n;
+    }
+    Ok(sum.beta())
+}
+
+/// Smoothing of a streamed image: validated settings (not `none`) and the whole image's β
+/// ([`streamed_beta`]).
+pub struct StreamSmoothing {
+    pub settings: SmoothSettings,
+    pub beta: f32,
+}
+
 /// What streaming one image produced.
 pub struct Streamed {
     pub width: usize,
@@ -54,8 +94,9 @@ pub struct Streamed {
 }
 
 /// Segments the image `source` delivers in tiles of `tile` pixels and writes its maps under
-/// `out_dir` as they are made (TIFF maps with `tags`); `roi` restricts the counts. `on_rows(done, total)` is told after
-/// every band how many rows are finished.
+/// `out_dir` as they are made (TIFF maps with `tags`), smoothed when `smoothing` is given;
+/// `roi` restricts the counts. `on_rows(done, total)` is told after every band how many rows
+/// are finished.
 #[allow(clippy::too_many_arguments)]
 pub fn segment_streamed(
     model: &Segmenter,
@@ -63,6 +104,7 @@ pub fn segment_streamed(
     out_dir: &Path,
     stem: &str,
     tile: usize,
+    smoothing: Option<StreamSmoothing>,
     opts: &OutputOptions,
     tags: &[TiffTag],
     mut roi: Option<MaskRows>,
@@ -90,31 +132,59 @@ pub fn segment_streamed(
             }
             writers.finish()
         });
-        let mut band_of = |band: &crate::tiling::Band| -> Result<(RasterImage, Prediction)> {
+        let mut smoother = smoothing
+            .filter(|s| s.settings.method != SmoothMethod::None)
+            .map(|s| TiledSmoother::new(&s.settings, s.beta, (w, h), k, tile, SMOOTH_HALO));
+        // Input rows of the bands the smoother has not finished yet (for the overlays).
+        let mut pending: VecDeque<RasterImage> = VecDeque::new();
+        let mut band_of = |band: &crate::tiling::Band| -> Result<Vec<(RasterImage, Prediction)>> {
             let pixels = reader.rows(band.window.y, band.window.height)?;
             let probs = predict_band(model, &pixels, band, w, h, Some(&mut moments));
             let core = pixels.crop(&Rect {
                 y: band.core.y - band.window.y,
                 ..band.core
             });
-            let prediction = Prediction::from(probs);
-            let mask = roi
-                .as_mut()
-                .map(|m| m.next_rows(band.core.height))
-                .transpose()?;
-            let band_counts = count_classes(&prediction.labels, k, mask.as_deref());
-            counts
-                .iter_mut()
-                .zip(band_counts)
-                .for_each(|(t, n)| *t += n);
-            Ok((core, prediction))
+            drop(pixels);
+            let done: Vec<(RasterImage, Prediction)> = match &mut smoother {
+                None => vec![(core, Prediction::from(probs))],
+                Some(s) => {
+                    let lab = model.features.lab(&core);
+                    pending.push_back(core);
+                    s.push(&lab, &probs)
+                        .into_iter()
+                        .map(|r| {
+                            let rows = pending.pop_front().expect("one input band per band");
+                            assert_eq!(rows.height, r.probabilities.height);
+                            let prediction = Prediction {
+                                labels: r.labels,
+                                probabilities: r.probabilities,
+                            };
+                            (rows, prediction)
+                        })
+                        .collect()
+                }
+            };
+            for (rows, prediction) in &done {
+                let mask = roi.as_mut().map(|m| m.next_rows(rows.height)).transpose()?;
+                let band_counts = count_classes(&prediction.labels, k, mask.as_deref());
+                counts
+                    .iter_mut()
+                    .zip(band_counts)
+                    .for_each(|(t, n)| *t += n);
+            }
+            Ok(done)
         };
         let mut read = Ok(());
-        for band in grid.bands() {
+        let mut rows_done = 0;
+        'bands: for band in grid.bands() {
             match band_of(&band) {
                 Ok(done) => {
-                    if tx.send(done).is_err() {
-                        break; // the writer stopped on an error, which join reports
+                    for item in done {
+                        rows_done += item.0.height;
+                        if tx.send(item).is_err() {
+                            break 'bands; // the writer stopped on an error, which join reports
+                        }
+                        on_rows(rows_done, h);
                     }
                 }
                 Err(e) => {
@@ -122,7 +192,6 @@ pub fn segment_streamed(
                     break;
                 }
             }
-            on_rows(band.core.y + band.core.height, h);
         }
         drop(tx);
         let written = writer.join().expect("the map writer does not panic");

@@ -81,10 +81,12 @@ pub struct ApplyArgs {
     /// replace existing files in --out even if grove did not write them (inputs never are).
     #[arg(long)]
     pub force: bool,
-    /// Predict in tiles of N × N pixels (plus a halo), bounding memory by the tile size;
-    /// 0 = the whole image at once. The forest's result does not depend on it. With N > 0,
-    /// PNG and TIFF images above 8 megapixels are also streamed: read, predicted and written
-    /// band by band, never held whole.
+    /// Predict and smooth in tiles of N × N pixels (plus a halo; tiles are shorter on images
+    /// wider than 8192 pixels, so a row of tiles holds at most 8 Mi pixels), bounding memory
+    /// by the tile size; 0 = the whole image at once. The forest's result does not depend on
+    /// it; smoothing in tiles changes a few labels in 100 000 (README). With N > 0, PNG and
+    /// TIFF images above 8 megapixels are also streamed: read, predicted, smoothed and
+    /// written band by band, never held whole, so they are not limited by memory.
     #[arg(long, value_name = "N", default_value_t = crate::tiling::DEFAULT_TILE)]
     pub tile: usize,
     /// Print one JSON line per image on stdout (status done/skipped, image, outputs, pixels,

@@ -25,6 +25,8 @@ pub struct Cli {
     threads: Option<u16>,
     /// Largest image accepted, in megapixels, 0.001–100000 (default: available memory / 450
     /// bytes per pixel, at least 16). Images are checked by their header before decoding.
+    /// Images that `apply` streams (PNG and TIFF above 8 megapixels, with --tile > 0) need
+    /// memory by the tile, not by the image: only a value given here limits them.
     #[arg(long, global = true, value_name = "MP")]
     max_megapixels: Option<f64>,
     /// No progress bars (they are also off when stderr is not a terminal).

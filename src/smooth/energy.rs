@@ -220,28 +220,86 @@ fn colour_distance2(colour: &[Plane], p: usize, q: usize) -> f32 {
 /// assert!((contrast_beta(&[p]) - 1.0 / (2.0 * mean)).abs() < 1e-6);
 /// ```
 pub fn contrast_beta(colour: &[Plane]) -> f32 {
-    let Some(first) = colour.first() else {
-        return 0.0;
-    };
-    let (w, h) = (first.width, first.height);
-    let mut sum = 0.0f64;
-    let mut count = 0u64;
-    for y in 0..h {
-        for x in 0..w {
-            let p = y * w + x;
-            for (d, &(dx, dy)) in FORWARD.iter().enumerate() {
-                if edge_exists(w, h, Connectivity::Eight, x, y, d, dx, dy) {
-                    let q = ((y as isize + dy) as usize) * w + (x as isize + dx) as usize;
-                    sum += colour_distance2(colour, p, q) as f64;
-                    count += 1;
+    let mut sum = ContrastSum::default();
+    sum.push(colour);
+    sum.beta()
+}
+
+/// [`contrast_beta`] of an image delivered a few rows at a time (an image too large to hold):
+/// the rows are [`push`](ContrastSum::push)ed top to bottom and [`beta`](ContrastSum::beta)
+/// gives the same value, to the bit, as `contrast_beta` of the whole image, because the pairs
+/// are summed in the same order.
+#[derive(Clone, Debug, Default)]
+pub struct ContrastSum {
+    /// The last row pushed (one per plane): its pairs with the row below are still to come.
+    last: Vec<Plane>,
+    sum: f64,
+    count: u64,
+}
+
+impl ContrastSum {
+    /// Adds the next rows (one plane per colour channel, all of the image's width).
+    pub fn push(&mut self, rows: &[Plane]) {
+        let Some(first) = rows.first() else {
+            return;
+        };
+        let (w, n) = (first.width, first.height);
+        if n == 0 {
+            return;
+        }
+        // The held row on top of the new ones: every row but the new last one now has the
+        // row below it, so its pairs are complete.
+        let window: Vec<Plane> = rows
+            .iter()
+            .enumerate()
+            .map(|(c, p)| match self.last.get(c) {
+                Some(prev) => {
+                    let mut data = Vec::with_capacity(w * (n + 1));
+                    data.extend_from_slice(&prev.data);
+                    data.extend_from_slice(&p.data);
+                    Plane::from_vec(w, n + 1, data)
+                }
+                None => p.clone(),
+            })
+            .collect();
+        let h = window[0].height;
+        self.add_rows(&window, h - 1);
+        self.last = window
+            .iter()
+            .map(|p| Plane::from_vec(w, 1, p.data[(h - 1) * w..].to_vec()))
+            .collect();
+    }
+
+    /// Adds the pairs starting in the first `rows` rows of `colour` (all four forward pairs
+    /// where the neighbour is inside `colour`).
+    fn add_rows(&mut self, colour: &[Plane], rows: usize) {
+        let (w, h) = (colour[0].width, colour[0].height);
+        for y in 0..rows {
+            for x in 0..w {
+                let p = y * w + x;
+                for (d, &(dx, dy)) in FORWARD.iter().enumerate() {
+                    if edge_exists(w, h, Connectivity::Eight, x, y, d, dx, dy) {
+                        let q = ((y as isize + dy) as usize) * w + (x as isize + dx) as usize;
+                        self.sum += colour_distance2(colour, p, q) as f64;
+                        self.count += 1;
+                    }
                 }
             }
         }
     }
-    if count == 0 || sum <= 0.0 {
-        return 0.0;
+
+    /// β of every row pushed so far, taken as the whole image (its last row has no row
+    /// below).
+    pub fn beta(mut self) -> f32 {
+        let last = std::mem::take(&mut self.last);
+        if !last.is_empty() {
+            self.add_rows(&last, 1);
+        }
+        if self.count == 0 || self.sum <= 0.0 {
+            return 0.0;
+        }
+        (self.count as f64 / (2.0 * self.sum)) as f32
     }
-    (count as f64 / (2.0 * sum)) as f32
 }
 
 /// The 8-connected forward weights `w · exp(−β‖I_p − I_q‖²) / dist(p, q)`.
@@ -292,6 +350,34 @@ mod tests {
         assert_eq!(four.energy(&[0, 1, 1, 0]), 4.0);
         assert_eq!(four.energy(&[0, 0, 1, 1]), 2.0);
         assert_eq!(e.incident_weight_sums(), vec![3.0; 4]);
+    }
+
+    #[test]
+    fn contrast_sum_in_pieces_equals_the_whole_image() {
+        let (w, h) = (13, 11);
+        let planes: Vec<Plane> = (0..3)
+            .map(|c| {
+                let v = (0..w * h)
+                    .map(|i| ((i * 7 + c * 13) % 17) as f32 * 0.37)
+                    .collect();
+                Plane::from_vec(w, h, v)
+            })
+            .collect();
+        let whole = contrast_beta(&planes);
+        assert!(whole > 0.0);
+        for pieces in [vec![11], vec![1; 11], vec![4, 3, 4], vec![10, 1]] {
+            let mut sum = ContrastSum::default();
+            let mut y = 0;
+            for n in pieces {
+                let rows: Vec<Plane> = planes
+                    .iter()
+                    .map(|p| Plane::from_vec(w, n, p.data[y * w..(y + n) * w].to_vec()))
+                    .collect();
+                sum.push(&rows);
+                y += n;
+            }
+            assert_eq!(sum.beta().to_bits(), whole.to_bits());
+        }
     }
 
     #[test]

@@ -15,7 +15,7 @@ pub mod tiles;
 
 use serde::{Deserialize, Serialize};
 
-pub use energy::{contrast_beta, Connectivity, PottsEnergy};
+pub use energy::{contrast_beta, Connectivity, ContrastSum, PottsEnergy};
 pub use meanfield::SpatialKernel;
 
 use crate::error::{GroveError, Result};

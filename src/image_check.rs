@@ -138,6 +138,28 @@ pub fn check_jpeg_complete(path: &Path, bytes: &[u8]) -> Result<()> {
     Ok(())
 }
 
+const TRUNCATED: &str = "the file is truncated or damaged: it ends before all of its pixel data (copy it again from its source)";
+
+/// True when a decoder's message means the file ended early (the decoders say it in
+/// several ways).
+fn says_truncated(text: &str) -> bool {
+    let lower = text.to_ascii_lowercase();
+    text.contains("fill whole buffer")
+        || lower.contains("unexpected end")
+        || lower.contains("eof")
+        || lower.contains("not have enough data")
+}
+
+/// A streaming decoder's error (`format` names the format) in the words of
+/// [`describe_decode_error`], so a damaged file reads the same on both paths.
+pub fn describe_stream_error(format: &str, text: &str) -> String {
+    if says_truncated(text) {
+        TRUNCATED.into()
+    } else {
+        format!("cannot decode {format}: {text}")
+    }
+}
+
 /// A decoder error in words a user can act on.
 pub fn describe_decode_error(e: &image::ImageError, file_len: usize) -> String {
     use image::ImageError as E;
@@ -148,11 +170,9 @@ pub fn describe_decode_error(e: &image::ImageError, file_len: usize) -> String {
     let truncated = match e {
         E::IoError(io) => io.kind() == std::io::ErrorKind::UnexpectedEof,
         _ => false,
-    } || text.contains("fill whole buffer")
-        || text.to_ascii_lowercase().contains("unexpected end")
-        || text.to_ascii_lowercase().contains("eof");
+    } || says_truncated(&text);
     if truncated {
-        return "the file is truncated or damaged: it ends before all of its pixel data (copy it again from its source)".into();
+        return TRUNCATED.into();
     }
     match e {
         E::Unsupported(u) => format!(

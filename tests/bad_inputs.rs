@@ -382,10 +382,17 @@ fn table_oversized_images_fail_before_allocating() {
     // An image header declaring 100000 × 100000 (a few hundred bytes on disk).
     let big = t.path().join("big.png");
     std::fs::write(&big, png_declaring(100_000, 100_000, 2)).unwrap();
-    apply_one(
-        &model,
-        &big,
-        &t.path().join("o"),
+    // Whole-image (`--tile 0`): refused from the header, before allocating.
+    expect(
+        &[
+            "apply",
+            p(&model),
+            p(&big),
+            "--out",
+            p(&t.path().join("o")),
+            "--tile",
+            "0",
+        ],
         3,
         &[
             "big.png",
@@ -393,6 +400,24 @@ fn table_oversized_images_fail_before_allocating() {
             "--max-megapixels",
             "GB of memory",
         ],
+    );
+    // Tiled (the default): streamed in bands, so nothing big is allocated; the missing pixel
+    // data is found in the first band.
+    apply_one(
+        &model,
+        &big,
+        &t.path().join("o"),
+        3,
+        &["big.png", "truncated or damaged"],
+    );
+    assert!(
+        !t.path().join("o").exists()
+            || std::fs::read_dir(t.path().join("o")).unwrap().all(|e| !e
+                .unwrap()
+                .file_name()
+                .to_string_lossy()
+                .starts_with("big")),
+        "no map of the damaged image is left"
     );
     // A 16-megapixel-limit override makes an ordinary image too large, with the same message.
     let img = t.path().join("64.png");

@@ -290,8 +290,13 @@ impl BatchJob<'_> {
         if self.tile == 0 {
             return Ok(None);
         }
-        let Some(source) =
-            open_streamable(path)?.filter(|s| s.width() * s.height() > stream_above_pixels())
+        // A file the streaming readers cannot open is left to the whole-image path, which
+        // checks its header against the size limit and words damage the same way for all
+        // formats.
+        let Some(source) = open_streamable(path)
+            .ok()
+            .flatten()
+            .filter(|s| s.width() * s.height() > stream_above_pixels())
         else {
             return Ok(None);
         };

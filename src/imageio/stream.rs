@@ -16,6 +16,7 @@ use std::path::{Path, PathBuf};
 
 use super::RasterImage;
 use crate::error::{GroveError, Result};
+use crate::image_check::describe_stream_error;
 use crate::plane::Plane;
 
 /// Largest image decoded whole when its format cannot be streamed (JPEG, planar TIFF):
@@ -95,8 +96,9 @@ pub struct PngRows {
 
 impl PngRows {
     pub fn open(path: &Path) -> Result<PngRows> {
-        let bad =
-            |e: png::DecodingError| GroveError::input(path, format!("cannot decode PNG: {e}"));
+        let bad = |e: png::DecodingError| {
+            GroveError::input(path, describe_stream_error("PNG", &e.to_string()))
+        };
         let file = File::open(path).map_err(|e| GroveError::io(path, e))?;
         let mut decoder = png::Decoder::new(BufReader::new(file));
         decoder.set_transformations(png::Transformations::EXPAND);
@@ -136,7 +138,9 @@ impl RowSource for PngRows {
             let row = self
                 .reader
                 .next_row()
-                .map_err(|e| GroveError::input(&self.path, format!("cannot decode PNG: {e}")))?
+                .map_err(|e| {
+                    GroveError::input(&self.path, describe_stream_error("PNG", &e.to_string()))
+                })?
                 .ok_or_else(|| GroveError::input(&self.path, "PNG ends before its last row"))?;
             let data = row.data();
             let len = self.width * self.stride;
@@ -180,7 +184,9 @@ impl TiffRows {
         use tiff::decoder::{ChunkType, Decoder};
         use tiff::tags::Tag;
         use tiff::ColorType as T;
-        let bad = |e: tiff::TiffError| GroveError::input(path, format!("cannot decode TIFF: {e}"));
+        let bad = |e: tiff::TiffError| {
+            GroveError::input(path, describe_stream_error("TIFF", &e.to_string()))
+        };
         let file = File::open(path).map_err(|e| GroveError::io(path, e))?;
         let mut decoder = Decoder::new(BufReader::new(file)).map_err(bad)?;
         let (w, h) = decoder.dimensions().map_err(bad)?;
@@ -238,7 +244,9 @@ impl TiffRows {
     fn fill(&mut self) -> Result<()> {
         use tiff::decoder::DecodingResult as D;
         let path = &self.path;
-        let bad = |e: tiff::TiffError| GroveError::input(path, format!("cannot decode TIFF: {e}"));
+        let bad = |e: tiff::TiffError| {
+            GroveError::input(path, describe_stream_error("TIFF", &e.to_string()))
+        };
         let y0 = self.chunk_row * self.chunk.1;
         if y0 >= self.height {
             return Err(GroveError::input(path, "TIFF ends before its last row"));

@@ -10,7 +10,6 @@ use crate::demo::write_demo_dataset;
 use crate::error::Result;
 use crate::eval::areas::{count_classes, AreaTable};
 use crate::eval::score::{evaluate_smoothed, MetricsReport};
-use crate::eval::smoothing_strength::choose_strength_reusing;
 use crate::imageio::{read_image, write_atomic, RasterImage};
 use crate::outputs::{write_outputs, OutputOptions};
 use crate::prediction::{describe, Prediction};
@@ -72,25 +71,17 @@ pub fn run(args: DemoArgs, progress: Progress) -> Result<()> {
     };
     let t_train = Instant::now();
     let entries = train.labelled();
-    let (mut model, rows) = cfg.fit_keeping_rows(&train, &entries, progress)?;
-    let choice = choose_strength_reusing(
-        &model,
-        &rows,
+    // The one training path of `grove train` and the workspace page, so the demo's model is
+    // the command's model and states its smoothing choice in the same words.
+    let trained = crate::train::train(
+        &cfg,
         &train,
         &entries,
-        SmoothMethod::Expansion,
+        crate::train::SmoothingRequest::default(),
         progress,
     )?;
-    drop(rows);
-    if let Some(c) = &choice {
-        model.smoothing = c.default();
-        println!(
-            "smoothing strength {} chosen on {} held-out training scenes (mean IoU/boundary F1 per strength: {})",
-            c.strength,
-            c.held_out.len(),
-            c.scores_line()
-        );
-    }
+    println!("smoothing: {}", trained.smoothing_statement());
+    let model = trained.model;
     let model_path = out.join("model.grove");
     crate::model::save(&model, &model_path)?;
     println!(

@@ -17,7 +17,7 @@ use crate::eval::score::evaluate_smoothed;
 use crate::forest::{ForestConfig, RandomForest};
 use crate::prediction::SmoothDefault;
 use crate::progress::Progress;
-use crate::segmenter::{Segmenter, TrainConfig, TrainingRows};
+use crate::segmenter::{Segmenter, TrainingRows};
 use crate::smooth::{SmoothMethod, SmoothSettings};
 use crate::tiling::DEFAULT_TILE;
 
@@ -111,26 +111,6 @@ pub fn pick(scores: &[StrengthScore]) -> &StrengthScore {
             fb.total_cmp(&fa).then(a.strength.total_cmp(&b.strength))
         })
         .expect("the best score is among the scores")
-}
-
-/// Runs the search for `method` over [`STRENGTH_GRID`] on `entries` (the training images),
-/// training its own cheap model from scratch. None when there are fewer than two images:
-/// nothing could be held out. After a fit, [`choose_strength_reusing`] is the faster way.
-pub fn choose_strength(
-    config: &TrainConfig,
-    dataset: &Dataset,
-    entries: &[&ImageEntry],
-    method: SmoothMethod,
-    progress: Progress,
-) -> Result<Option<StrengthChoice>> {
-    if entries.len() < 2 {
-        return Ok(None);
-    }
-    let mut cheap = config.clone();
-    cheap.forest.n_trees = cheap.forest.n_trees.min(SEARCH_TREES);
-    cheap.samples_per_image = cheap.samples_per_image.min(SEARCH_SAMPLES_PER_IMAGE);
-    let (model, rows) = cheap.fit_keeping_rows(dataset, entries, progress)?;
-    choose_strength_reusing(&model, &rows, dataset, entries, method, progress)
 }
 
 /// Runs the search for `method` over [`STRENGTH_GRID`] with the features of a finished fit:

@@ -8,7 +8,7 @@
 //    first minute plus scripted painting, not a person's painting speed.
 // 2. The brush on BIG.png (4000 × 3000): stroke handler and frame times, in ms.
 // 3. `grove label DEMO20` (20 labelled demo images) → Train → model shown, seconds from the
-//    click, twice, alternating with `grove train DEMO20` three times.
+//    click, three times, alternating with `grove train DEMO20` four times.
 // Writes OUTDIR/measure.json.
 import { copyFileSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
@@ -91,20 +91,23 @@ async function pageTrain() {
   await page.waitForFunction(() => S.training);
   await trained(600000);
   const seconds = (Date.now() - c0) / 1000;
+  const text = await page.$eval('#train-state', (e) => e.textContent);
+  serverRuns.push(Number((/in ([0-9.]+) s/.exec(text) || [])[1]));
   server.p.kill();
   await new Promise((r) => server.p.once('exit', r));
   return seconds;
 }
 const cli = [cliTrain()];
 const pageRuns = [];
-for (let k = 0; k < 2; k++) {
+const serverRuns = [];
+for (let k = 0; k < 3; k++) {
   pageRuns.push(await pageTrain());
   cli.push(cliTrain());
 }
-log(`train of 20 demo images: page ${pageRuns.map((x) => x.toFixed(1)).join(', ')} s (click → model shown); grove train ${cli.map((x) => x.toFixed(1)).join(', ')} s`);
+log(`train of 20 demo images: page ${pageRuns.map((x) => x.toFixed(1)).join(', ')} s (click → model shown; the server's own training ${serverRuns.map((x) => x.toFixed(1)).join(', ')} s); grove train ${cli.map((x) => x.toFixed(1)).join(', ')} s`);
 await ctx.close();
 if (errors.length) throw new Error(`page errors: ${errors.join('; ')}`);
 writeFileSync(join(out, 'measure.json'), JSON.stringify({
   first_prediction_seconds: firstPrediction, painted_seconds: paintedAt, first_train_seconds: firstTrain,
-  brush, page_train_seconds: pageRuns, cli_train_seconds: cli,
+  brush, page_train_seconds: pageRuns, server_train_seconds: serverRuns, cli_train_seconds: cli,
 }, null, 1));

@@ -77,6 +77,12 @@ pub fn train(
 }
 
 impl Trained {
+    /// Whether the strength was searched (so `grove train --smooth-strength W` would have
+    /// saved that time: the train command says so; the demo and the page have no such option).
+    pub fn strength_searched(&self) -> bool {
+        self.choice.is_some()
+    }
+
     /// "expansion, strength 3 (best held-out mean IoU …)": the default and why, on one or two
     /// lines, as `grove train` prints it and the page shows it.
     pub fn smoothing_statement(&self) -> String {
@@ -94,7 +100,7 @@ impl Trained {
 /// Why the search chose what it chose, with its scores and its share of the time.
 fn explain_choice(c: &StrengthChoice, total_seconds: f64) -> String {
     format!(
-        "best held-out mean IoU, tie-break boundary F1, of a {SEARCH_TREES}-tree forest trained on {} images and scored on {} ({}){}; {:.1} s, {:.0} % of training; --smooth-strength W skips this)\n  strength mean IoU/boundary F1: {}",
+        "best held-out mean IoU, tie-break boundary F1, of a {SEARCH_TREES}-tree forest trained on {} images and scored on {} ({}){}; {:.1} s, {:.0} % of training)\n  strength mean IoU/boundary F1: {}",
         c.trained_on,
         c.held_out.len(),
         c.held_out.join(", "),

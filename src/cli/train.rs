@@ -146,6 +146,9 @@ pub fn run(args: TrainArgs, progress: Progress) -> Result<()> {
         model.features.n_features(),
     );
     println!("smoothing default: {}", trained.smoothing_statement());
+    if trained.strength_searched() {
+        println!("  (--smooth-strength W sets the strength and skips this search)");
+    }
     let ranked = model.ranked_importances();
     let top: Vec<String> = ranked
         .iter()

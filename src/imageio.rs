@@ -17,6 +17,7 @@ pub mod npy;
 pub mod stream;
 pub mod stream_out;
 pub mod tiff_labels;
+pub mod tiff_lzw;
 pub mod tiff_out;
 pub mod tiff_tags;
 use crate::plane::Plane;
@@ -217,7 +218,10 @@ fn is_grey_colour(c: image::ColorType) -> bool {
 /// Reads an image file into sRGB planes in [0, 1].
 pub fn read_image(path: &Path) -> Result<RasterImage> {
     use image::ColorType as C;
-    let img = decode(path)?;
+    let img = match decode(path) {
+        Ok(img) => img,
+        Err(e) => return tiff_second_reading(path).unwrap_or(Err(e)),
+    };
     let (w, h) = (img.width() as usize, img.height() as usize);
     if let Some(buf) = img.as_rgb32f() {
         check_finite(path, buf.as_raw(), 3, w)?;
@@ -249,6 +253,18 @@ pub fn read_image(path: &Path) -> Result<RasterImage> {
         height: h,
         channels: planes,
     })
+}
+
+/// A TIFF the `image` crate cannot decode read through grove's own chunk reader, which has
+/// a second LZW decoder for chunks the `tiff` crate refuses (`tiff_lzw`); `None` (keep the
+/// first error) when that reader does not take the file or fails too.
+fn tiff_second_reading(path: &Path) -> Option<Result<RasterImage>> {
+    use stream::RowSource;
+    let rows = stream::TiffRows::open(path).ok()??;
+    let (w, h) = (rows.width(), rows.height());
+    check_size(path, w as u64, h as u64).ok()?;
+    let mut bands = stream::BandReader::new(Box::new(rows));
+    bands.rows(0, h).ok().map(Ok)
 }
 
 /// Float images may hold NaN or infinity, which no filter or tree can use.

@@ -2,7 +2,8 @@
 //! (tests/fixtures/tiff_npy, made and checked by `make_tiff_npy_fixture.py` with tifffile
 //! and numpy; versions in `versions.txt`):
 //! * the TIFF inputs tifffile wrote (8-bit strips; 16-bit tiles as BigTIFF; big-endian
-//!   16-bit Deflate tiles) read as the values the script put in;
+//!   16-bit Deflate tiles; LZW with predictor in strips and tiles; PackBits) read as the
+//!   values the script put in, whole and by the streaming reader;
 //! * the TIFF maps and the `.npy` grove writes are byte for byte the files tifffile and numpy
 //!   read back there (right pixels, palette, tiles, BigTIFF, the input's resolution and
 //!   GeoTIFF tags; numpy.load's array, and numpy.save's very bytes);
@@ -18,6 +19,7 @@ use std::process::Command;
 
 use grove::dataset::{Dataset, LabelOptions};
 use grove::imageio::npy::NpyWriter;
+use grove::imageio::stream::{open_streamable, BandReader};
 use grove::imageio::tiff_tags::{find_entry, read_pass_through_tags};
 use grove::imageio::{read_image, read_label_file, LabelPixels};
 use grove::outputs::stream::{open_sink, MapKind, MapStyle};
@@ -70,6 +72,68 @@ fn tifffile_inputs_read_as_written() {
     );
     let be = |x, y| vec![grey16(x, y), grey16(y, x), 65535 - grey16(x, y)];
     assert_eq!(check("geo_rgb16_be_tiles.tif", 65535.0, &be), (50, 45));
+    // LZW with the horizontal predictor (strips, tiles; 8- and 16-bit) and PackBits.
+    assert_eq!(
+        check("lzw_pred_rgb8_strips.tif", 255.0, &|x, y| rgb8(x, y)
+            .to_vec()),
+        (61, 47)
+    );
+    assert_eq!(
+        check("lzw_pred_grey16_tiles.tif", 65535.0, &|x, y| vec![grey16(
+            x, y
+        )]),
+        (70, 53)
+    );
+    assert_eq!(
+        check("lzw_grey8_tiles.tif", 255.0, &|x, y| vec![
+            grey16(x, y) >> 8
+        ]),
+        (70, 53)
+    );
+    assert_eq!(
+        check("packbits_grey8_strips.tif", 255.0, &|x, y| vec![
+            grey16(x, y) >> 8
+        ]),
+        (70, 53)
+    );
+}
+
+/// The streaming reader (which `apply` uses above its size threshold) gives the whole-file
+/// reader's samples for every compression and layout of the fixture, in bands that do not
+/// line up with the strips or tiles.
+#[test]
+fn tifffile_inputs_stream_as_read_whole() {
+    for name in [
+        "geo_rgb8_strips.tif",
+        "grey16_tiles_big.tif",
+        "geo_rgb16_be_tiles.tif",
+        "lzw_pred_rgb8_strips.tif",
+        "lzw_pred_grey16_tiles.tif",
+        "lzw_grey8_tiles.tif",
+        "packbits_grey8_strips.tif",
+    ] {
+        let path = fixture(&format!("inputs/{name}"));
+        let whole = read_image(&path).unwrap();
+        let source = open_streamable(&path)
+            .unwrap()
+            .unwrap_or_else(|| panic!("{name} streams"));
+        let mut bands = BandReader::new(source);
+        let w = whole.width;
+        let mut y0 = 0;
+        while y0 < whole.height {
+            let rows = 11.min(whole.height - y0);
+            let band = bands.rows(y0, rows).unwrap();
+            for (c, plane) in band.channels.iter().enumerate() {
+                assert_eq!(
+                    plane.data[..],
+                    whole.channels[c].data[y0 * w..(y0 + rows) * w],
+                    "{name}: rows {y0}..{} channel {c}",
+                    y0 + rows
+                );
+            }
+            y0 += rows;
+        }
+    }
 }
 
 /// The files `make_tiff_npy_fixture.py check` verified, written again by grove's writers.

@@ -14,6 +14,7 @@ use std::fs::File;
 use std::io::BufReader;
 use std::path::{Path, PathBuf};
 
+use super::tiff_lzw::LzwChunks;
 use super::RasterImage;
 use crate::error::{GroveError, Result};
 use crate::image_check::describe_stream_error;
@@ -175,6 +176,8 @@ pub struct TiffRows {
     rows: Vec<u16>,
     next: usize,
     chunk_row: usize,
+    /// LZW chunks the `tiff` crate refuses are decoded a second way (see `tiff_lzw`).
+    lzw: Option<LzwChunks>,
 }
 
 impl TiffRows {
@@ -224,6 +227,7 @@ impl TiffRows {
             ChunkType::Strip => 1,
             ChunkType::Tile => width.div_ceil(cw.max(1)),
         };
+        let lzw = LzwChunks::of(&mut decoder, cw.max(1), stride, bits == 16);
         Ok(Some(TiffRows {
             path: path.to_path_buf(),
             decoder,
@@ -237,6 +241,7 @@ impl TiffRows {
             rows: Vec::new(),
             next: 0,
             chunk_row: 0,
+            lzw,
         }))
     }
 
@@ -259,10 +264,15 @@ impl TiffRows {
             let index = (self.chunk_row * self.across + cx) as u32;
             let (dw, dh) = self.decoder.chunk_data_dimensions(index);
             let (dw, dh) = (dw as usize, (dh as usize).min(rows));
-            let data: Vec<u16> = match self.decoder.read_chunk(index).map_err(bad)? {
-                D::U8(v) => v.into_iter().map(u16::from).collect(),
-                D::U16(v) => v,
-                _ => return Err(GroveError::input(path, "unexpected TIFF sample type")),
+            let data: Vec<u16> = match self.decoder.read_chunk(index) {
+                Ok(D::U8(v)) => v.into_iter().map(u16::from).collect(),
+                Ok(D::U16(v)) => v,
+                Ok(_) => return Err(GroveError::input(path, "unexpected TIFF sample type")),
+                Err(e) => self
+                    .lzw
+                    .as_ref()
+                    .and_then(|l| l.decode_chunk(path, index as usize, dh, dw))
+                    .ok_or_else(|| bad(e))?,
             };
             let x0 = cx * self.chunk.0;
             let len = dw * self.stride;
